@@ -1,0 +1,1 @@
+"""Generic d-level qudit register circuits (no gauge-theory knowledge)."""

@@ -1,0 +1,5 @@
+import sys
+
+from lgt.cli import main
+
+sys.exit(main())

@@ -1,0 +1,1 @@
+"""Subcommands of the ``fluxline`` command line; each module exposes ``register(subparsers)``."""
