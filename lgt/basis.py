@@ -90,6 +90,21 @@ class PhysicalBasis:
         self.levels = enumerate_levels(params)
         self.codes = codes_of(self.levels, params.levels)
 
+    def with_couplings(self, params: ModelParams) -> "PhysicalBasis":
+        """The same basis (shared arrays) for a model that differs only in w, m, J, θ or link type.
+
+        The Gauss-law basis depends on sites, levels, static charges and ε alone, so parameter
+        scans need not enumerate it again.
+        """
+        same = ("sites", "levels", "static_charges", "boundary_field")
+        for name in same:
+            if getattr(params, name) != getattr(self.params, name):
+                raise ValueError(f"{name} differs ({getattr(params, name)!r} vs {getattr(self.params, name)!r}); "
+                                 "build a new PhysicalBasis")
+        clone = object.__new__(PhysicalBasis)
+        clone.params, clone.levels, clone.codes = params, self.levels, self.codes
+        return clone
+
     # ------------------------------------------------------------------ sizes
     @property
     def dimension(self) -> int:

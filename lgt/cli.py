@@ -10,7 +10,7 @@ from lgt import __version__
 from lgt.errors import ConfigError, ResourceError
 
 #: Subcommand modules under ``lgt.commands``; each exposes ``register(subparsers)``.
-COMMAND_MODULES = ("spectrum",)
+COMMAND_MODULES = ("spectrum", "demo")
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -67,15 +67,17 @@ def electric_diagonal(basis: PhysicalBasis) -> np.ndarray:
 def build_hamiltonian(basis: PhysicalBasis) -> sp.csr_matrix:
     """H on the physical subspace as a real symmetric CSR matrix (lattice energy units)."""
     occ = basis.occupations()
+    index_type = np.int32 if basis.dimension < 2 ** 31 - 1 else np.int64
     rows, cols, vals = [], [], []
     for link in range(basis.params.n_links):
         src, dst, amp = hopping_pairs(basis, link, occ)
+        src, dst = src.astype(index_type), dst.astype(index_type)
         rows += [src, dst]
         cols += [dst, src]
         vals += [amp, amp]
     diag = mass_diagonal(basis, occ) + electric_diagonal(basis)
     del occ
-    idx = np.arange(basis.dimension, dtype=np.int64)
+    idx = np.arange(basis.dimension, dtype=index_type)
     rows.append(idx)
     cols.append(idx)
     vals.append(diag)
