@@ -1,0 +1,256 @@
+"""Crash-safe, resumable storage of a sweep: ``OUT.h5`` plus a sidecar ``OUT.h5.parts/``.
+
+Why this design: HDF5 updates a file in place (superblock, B-trees, heaps), and a process killed
+in the middle of such an update can leave the whole file unreadable — flushing after every run
+narrows the window but does not close it. So the main file is never modified in place:
+
+* each finished run is written by the coordinator to its own small file ``OUT.h5.parts/<id>.h5``
+  through a temporary file + fsync + :func:`os.replace` (atomic), so a part exists only when
+  complete;
+* from time to time (and at the end) the parts are merged copy-on-write: the main file is copied,
+  the runs are added to the copy, the copy is flushed, fsynced and moved over ``OUT.h5``. A kill
+  at any moment leaves either the old or the new main file, and the parts not yet merged.
+
+On start the store merges leftover parts, deletes incomplete groups (status other than
+``complete``) so their runs are redone, and refuses an output written for another configuration.
+An advisory lock ``OUT.h5.lock`` keeps a second coordinator off the same output.
+"""
+
+from __future__ import annotations
+
+import fcntl
+import json
+import os
+import shutil
+import socket
+import time
+import warnings
+from pathlib import Path
+from typing import Any, Callable, Mapping
+
+import h5py
+
+from lgt.errors import ConfigError
+from lgt.io import (STATUS_COMPLETE, atomic_h5, canonical_json, run_status, write_h5md_root,
+                    write_run_group)
+from lgt.results import RunResult
+from lgt.sweep.plan import SweepPlan, SweepPoint
+
+#: Run status of a run whose task raised an exception (redone on the next start).
+STATUS_FAILED = "failed"
+
+
+def parts_dir(path: str | Path) -> Path:
+    """Sidecar directory holding finished runs not yet merged into ``path``."""
+    path = Path(path)
+    return path.with_name(path.name + ".parts")
+
+
+class SweepStore:
+    """The output of one sweep configuration.
+
+    Parameters
+    ----------
+    path : path of the main HDF5 file.
+    plan : the expanded sweep (its config hash identifies the output).
+    overwrite : delete an existing output (of any configuration) first.
+    merge_every : seconds between copy-on-write merges of finished runs into the main file.
+    """
+
+    def __init__(self, path: str | Path, plan: SweepPlan, overwrite: bool = False,
+                 merge_every: float = 30.0) -> None:
+        self.path = Path(path)
+        self.parts = parts_dir(self.path)
+        self.lock_path = self.path.with_name(self.path.name + ".lock")
+        self.plan = plan
+        self.overwrite = overwrite
+        self.merge_every = merge_every
+        self._lock_fd: int | None = None
+        self._last_merge = time.monotonic()
+
+    # ------------------------------------------------------------------ lifecycle
+    def open(self) -> set[str]:
+        """Lock, check or create the output, merge leftovers; return the complete run ids."""
+        if not self.path.parent.is_dir():
+            raise ConfigError("--output", str(self.path), "its directory does not exist")
+        self._lock()
+        try:
+            if self.overwrite:
+                self.path.unlink(missing_ok=True)
+                shutil.rmtree(self.parts, ignore_errors=True)
+            self._remove_stale_temporaries()
+            self.parts.mkdir(exist_ok=True)
+            if self.path.exists():
+                self._check_identity(self.path)
+            else:
+                self._create_main()
+            for part in self._part_files():
+                self._check_identity(part)
+            self.merge(drop_incomplete=True)
+            return self.complete_ids()
+        except BaseException:
+            self._unlock()
+            raise
+
+    def close(self) -> None:
+        """Merge every finished run into the main file and release the lock."""
+        try:
+            self.merge()
+            if self.parts.is_dir() and not any(self.parts.iterdir()):
+                self.parts.rmdir()
+        finally:
+            self._unlock()
+
+    def __enter__(self) -> "SweepStore":
+        self.open()
+        return self
+
+    def __exit__(self, *exc: Any) -> None:
+        self.close()
+
+    # ------------------------------------------------------------------ adding runs
+    def add(self, point: SweepPoint, result: RunResult, info: Mapping[str, Any]) -> None:
+        """Store a finished run durably (as a part file) and merge if one is due."""
+        extra = self._run_attrs(point, info)
+        self._write_part(point.run_id, lambda g: write_run_group(g, result, extra))
+        self.maybe_merge()
+
+    def add_failure(self, point: SweepPoint, message: str, info: Mapping[str, Any]) -> None:
+        """Record a run whose task raised (status ``failed``; redone on the next start)."""
+        attrs = {**self._run_attrs(point, info), "task": self.plan.task, "error": message,
+                 "parameters": canonical_json(point.config), "status": STATUS_FAILED}
+
+        def fill(group: h5py.Group) -> None:
+            group.attrs.update(attrs)
+        self._write_part(point.run_id, fill)
+        self.maybe_merge()
+
+    def _run_attrs(self, point: SweepPoint, info: Mapping[str, Any]) -> dict[str, Any]:
+        return {"run_id": point.run_id, "sweep_point": point.index,
+                "sweep_assignments": canonical_json(point.assignments), **info}
+
+    def _write_part(self, run_id: str, fill: Callable[[h5py.Group], None]) -> None:
+        with atomic_h5(self.parts / f"{run_id}.h5") as f:
+            write_h5md_root(f)
+            f.attrs["sweep_config_hash"] = self.plan.config_hash
+            fill(f.create_group("runs").create_group(run_id))
+
+    # ------------------------------------------------------------------ merging
+    def maybe_merge(self) -> None:
+        """Merge when ``merge_every`` seconds have passed since the last merge."""
+        if time.monotonic() - self._last_merge >= self.merge_every:
+            self.merge()
+
+    def merge(self, drop_incomplete: bool = False) -> int:
+        """Fold part files into the main file copy-on-write; return the number merged."""
+        self._last_merge = time.monotonic()
+        parts = self._part_files()
+        if not parts and not (drop_incomplete and self._has_incomplete()):
+            return 0
+        with atomic_h5(self.path, copy_from=self.path) as f:
+            runs = f.require_group("runs")
+            if drop_incomplete:
+                for run_id in [r for r in runs if run_status(runs[r]) != STATUS_COMPLETE]:
+                    del runs[run_id]
+            for part in parts:
+                self._merge_part(part, runs)
+        for part in parts:
+            part.unlink(missing_ok=True)
+        return len(parts)
+
+    @staticmethod
+    def _merge_part(part: Path, runs: h5py.Group) -> None:
+        with h5py.File(part, "r") as src:
+            for run_id, group in src["runs"].items():
+                if run_id in runs:
+                    if (run_status(runs[run_id]) == STATUS_COMPLETE
+                            and run_status(group) != STATUS_COMPLETE):
+                        continue
+                    del runs[run_id]
+                src.copy(group, runs, name=run_id)
+
+    def _has_incomplete(self) -> bool:
+        with h5py.File(self.path, "r") as f:
+            return any(run_status(g) != STATUS_COMPLETE for g in f.get("runs", {}).values())
+
+    def complete_ids(self) -> set[str]:
+        """Run ids with status ``complete`` in the main file or in part files."""
+        done: set[str] = set()
+        for file in [self.path, *self._part_files()]:
+            with h5py.File(file, "r") as f:
+                done.update(r for r, g in f.get("runs", {}).items()
+                            if run_status(g) == STATUS_COMPLETE)
+        return done
+
+    # ------------------------------------------------------------------ identity
+    def _create_main(self) -> None:
+        plan = self.plan
+        with atomic_h5(self.path) as f:
+            write_h5md_root(f)
+            f.attrs.update({
+                "sweep_config_hash": plan.config_hash, "sweep_config": plan.config_json,
+                "sweep_task": plan.task, "sweep_points": len(plan.points),
+                "sweep_grid": canonical_json(list(plan.grid.items())),
+                "sweep_zip": canonical_json(list(plan.zip.items())),
+                "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+            })
+            f.create_group("runs")
+
+    def _check_identity(self, file: Path) -> None:
+        try:
+            with h5py.File(file, "r") as f:
+                found = f.attrs.get("sweep_config_hash")
+        except OSError as exc:
+            raise ConfigError("--output", str(file), f"exists but is not a readable HDF5 file "
+                                                     f"({exc}); pass --overwrite to replace it") from None
+        if found is None:
+            raise ConfigError("--output", str(file), "exists but is not a Fluxline sweep file; "
+                                                     "choose another path or pass --overwrite")
+        if found != self.plan.config_hash:
+            raise ConfigError("--output", str(file),
+                              f"holds results of a different sweep configuration (hash "
+                              f"{str(found)[:12]}…, this configuration {self.plan.config_hash[:12]}…); "
+                              "choose another output or pass --overwrite to discard them")
+
+    # ------------------------------------------------------------------ housekeeping
+    def _part_files(self) -> list[Path]:
+        return sorted(self.parts.glob("*.h5")) if self.parts.is_dir() else []
+
+    def _remove_stale_temporaries(self) -> None:
+        """Delete temporaries left by a killed coordinator (safe: we hold the lock)."""
+        stale = list(self.path.parent.glob(f".{self.path.name}.*.tmp"))
+        if self.parts.is_dir():
+            stale += list(self.parts.glob(".*.tmp"))
+        for tmp in stale:
+            tmp.unlink(missing_ok=True)
+
+    def _lock(self) -> None:
+        while True:
+            fd = os.open(self.lock_path, os.O_RDWR | os.O_CREAT, 0o644)
+            try:
+                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            except BlockingIOError:
+                os.close(fd)
+                raise ConfigError("--output", str(self.path),
+                                  f"is in use by another running sweep (lock {self.lock_path})") from None
+            except OSError as exc:  # file systems without flock support
+                warnings.warn(f"cannot lock {self.lock_path} ({exc}); make sure only one sweep "
+                              "writes this output", stacklevel=2)
+                break
+            try:
+                same = os.stat(self.lock_path).st_ino == os.fstat(fd).st_ino
+            except FileNotFoundError:
+                same = False
+            if same:
+                break
+            os.close(fd)  # the lock file was removed by a finishing sweep: retry
+        os.ftruncate(fd, 0)
+        os.write(fd, json.dumps({"host": socket.gethostname(), "pid": os.getpid()}).encode())
+        self._lock_fd = fd
+
+    def _unlock(self) -> None:
+        if self._lock_fd is None:
+            return
+        self.lock_path.unlink(missing_ok=True)
+        os.close(self._lock_fd)
+        self._lock_fd = None
