@@ -95,6 +95,10 @@ class ParametrizedCircuit:
             self.ops.append(Op(op.gate, idx, op.scale, op.offset, op.layer))
         self._n_params = max(self._n_params, other.n_params + shift)
 
+    def reserve(self, n_params: int) -> None:
+        """Declare at least ``n_params`` parameters (some may be unused)."""
+        self._n_params = max(self._n_params, int(n_params))
+
     @property
     def n_params(self) -> int:
         """Number of parameters (largest bound index + 1, at least the declared size)."""
