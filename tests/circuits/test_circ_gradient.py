@@ -6,14 +6,9 @@ import scipy.linalg as sla
 import scipy.sparse as sp
 
 from circuits.circuit import ParametrizedCircuit
-from circuits.gates import DiagonalGate, GeneratorGate, MSGate, TwoLevelRotation
+from circuits.random_circuits import random_circuit, random_sparse_generator, random_state
 from circuits.register import Space
 from circuits.sparse_gates import SparseGeneratorGate
-
-
-def rand_state(rng, shape):
-    v = rng.normal(size=shape) + 1j * rng.normal(size=shape)
-    return v / np.linalg.norm(v)
 
 
 def finite_difference(fun, p, h=1e-5):
@@ -26,31 +21,9 @@ def finite_difference(fun, p, h=1e-5):
     return np.array(out)
 
 
-def random_register_circuit(rng, n, d, n_gates, n_params):
-    c = ParametrizedCircuit(Space.qudits(n, d), n_params)
-    for _ in range(n_gates):
-        kind = rng.integers(5)
-        q = rng.choice(n, size=3, replace=False)
-        j, k = np.sort(rng.choice(d, size=2, replace=False))
-        idx = None if rng.random() < 0.15 else int(rng.integers(n_params))
-        if kind == 0:
-            gate = TwoLevelRotation(q[0], j, k, d, phi=rng.uniform(0, 2 * np.pi))
-        elif kind == 1:
-            gate = MSGate(q[:2], j, k, d, phi=rng.uniform(0, 2 * np.pi))
-        elif kind == 2:
-            gate = DiagonalGate(q[:2], rng.normal(size=(d, d)), d)
-        elif kind == 3:
-            gate = DiagonalGate(q[:1], rng.normal(size=d), d)
-        else:
-            h = rng.normal(size=(d * d, d * d)) + 1j * rng.normal(size=(d * d, d * d))
-            gate = GeneratorGate(q[:2], h + h.conj().T, d)
-        c.append(gate, idx, scale=rng.uniform(-2, 2), offset=rng.uniform(-1, 1))
-    return c
-
-
 def check_gradients(c, rng, batch=None):
     shape = (c.space.dim,) if batch is None else (batch, c.space.dim)
-    psi, phi = rand_state(rng, shape), rand_state(rng, shape)
+    psi, phi = random_state(rng, shape), random_state(rng, shape)
     p = rng.uniform(-np.pi, np.pi, size=c.n_params)
     f, df = c.overlap_and_gradient(p, psi, phi)
     # reference: direct forward evaluation of the overlap
@@ -66,36 +39,12 @@ def check_gradients(c, rng, batch=None):
 def test_register_gradients_shared_parameters():
     rng = np.random.default_rng(11)
     for n, d in [(3, 3), (4, 2), (3, 4)]:
-        check_gradients(random_register_circuit(rng, n, d, 25, 6), rng)
+        check_gradients(random_circuit(rng, n, d, 25, 6), rng)
 
 
 def test_register_gradients_batch():
     rng = np.random.default_rng(12)
-    check_gradients(random_register_circuit(rng, 3, 3, 15, 5), rng, batch=4)
-
-
-def random_sparse_generator(rng, dim, n_pairs, n_diag, big=0):
-    """Block-diagonal Hermitian: random coupled pairs, some diagonal entries, one big block."""
-    perm = rng.permutation(dim)
-    rows, cols, vals = [], [], []
-    pairs = perm[: 2 * n_pairs].reshape(-1, 2)
-    for a, b in pairs:
-        v = rng.normal() + 1j * rng.normal()
-        rows += [a, b]
-        cols += [b, a]
-        vals += [v, np.conj(v)]
-    for a in perm[2 * n_pairs : 2 * n_pairs + n_diag]:
-        rows.append(a)
-        cols.append(a)
-        vals.append(rng.normal())
-    if big:
-        members = perm[-big:]
-        for a, b in zip(members[:-1], members[1:]):
-            v = rng.normal()
-            rows += [a, b]
-            cols += [b, a]
-            vals += [v, v]
-    return sp.csr_matrix((vals, (rows, cols)), shape=(dim, dim))
+    check_gradients(random_circuit(rng, 3, 3, 15, 5), rng, batch=4)
 
 
 def test_sparse_gate_matches_expm():
@@ -104,7 +53,7 @@ def test_sparse_gate_matches_expm():
     g = random_sparse_generator(rng, 60, 12, 10, big=9)
     gate = SparseGeneratorGate(g, max_block=4)
     assert gate.large and gate.groups
-    psi = rand_state(rng, (2, 60))
+    psi = random_state(rng, (2, 60))
     c = ParametrizedCircuit(Space.subspace(60))
     c.append(gate, 0)
     np.testing.assert_allclose(c.apply([0.9], psi), psi @ sla.expm(-0.9j * g.toarray()).T, atol=1e-10)

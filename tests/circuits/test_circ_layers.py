@@ -9,26 +9,17 @@ from scipy.stats import unitary_group
 
 from circuits.fitting import compile_unitary, fit_to_target
 from circuits.layers import NativeLayerSpec, generator_circuit, native_brickwork
+from circuits.random_circuits import random_hermitian, random_state
 from circuits.register import Space, embed_local, product_state
 from circuits.terms import LocalTerm
 from circuits.trotter import trotter_circuit, trotter_schedule
 
 
-def rand_state(rng, n):
-    v = rng.normal(size=n) + 1j * rng.normal(size=n)
-    return v / np.linalg.norm(v)
-
-
-def rand_herm(rng, n):
-    a = rng.normal(size=(n, n)) + 1j * rng.normal(size=(n, n))
-    return a + a.conj().T
-
-
 def local_terms(rng, n_qudits, d):
     """Random 1- and 2-local Hermitian terms (one diagonal), on a chain."""
-    terms = [LocalTerm((q, q + 1), rand_herm(rng, d * d)) for q in range(n_qudits - 1)]
+    terms = [LocalTerm((q, q + 1), random_hermitian(rng, d * d)) for q in range(n_qudits - 1)]
     terms.append(LocalTerm((0,), np.diag(rng.normal(size=d))))
-    terms.append(LocalTerm((n_qudits - 1,), rand_herm(rng, d)))
+    terms.append(LocalTerm((n_qudits - 1,), random_hermitian(rng, d)))
     return terms
 
 
@@ -49,7 +40,7 @@ def finite_difference(fun, p, h=1e-5):
 def test_native_brickwork_identity_and_gradient(spec):
     rng = np.random.default_rng(1)
     c = native_brickwork(4, 3, 2, spec)
-    psi, phi = rand_state(rng, 81), rand_state(rng, 81)
+    psi, phi = random_state(rng, 81), random_state(rng, 81)
     np.testing.assert_allclose(c.apply(np.zeros(c.n_params), psi), psi, atol=1e-14)
     p = rng.uniform(-np.pi, np.pi, c.n_params)
     _, df = c.overlap_and_gradient(p, psi, phi)
@@ -74,7 +65,7 @@ def test_generator_layers_groups_and_modes_agree():
     sparse_terms = [sp.csr_matrix(embed_local(t.matrix, t.qudits, n, d)) for t in terms]
     sub = generator_circuit(Space.subspace(d**n), sparse_terms, 2, groups)
     assert reg.n_params == sub.n_params == 6
-    psi, phi = rand_state(rng, 27), rand_state(rng, 27)
+    psi, phi = random_state(rng, 27), random_state(rng, 27)
     np.testing.assert_allclose(reg.apply(np.zeros(6), psi), psi, atol=1e-14)
     p = rng.normal(size=6)
     np.testing.assert_allclose(reg.apply(p, psi), sub.apply(p, psi), atol=1e-12)
@@ -98,10 +89,10 @@ def test_trotter_error_scaling(order, slope):
     # standard Trotter-Suzuki result: global error O(dt) for order 1, O(dt^2) for Strang
     rng = np.random.default_rng(4)
     n, d = 3, 2
-    a = [LocalTerm((0, 1), rand_herm(rng, 4)), LocalTerm((2,), rand_herm(rng, 2))]
-    b = [LocalTerm((1, 2), rand_herm(rng, 4))]
+    a = [LocalTerm((0, 1), random_hermitian(rng, 4)), LocalTerm((2,), random_hermitian(rng, 2))]
+    b = [LocalTerm((1, 2), random_hermitian(rng, 4))]
     h = sum(embed_local(t.matrix, t.qudits, n, d) for t in a + b)
-    psi = rand_state(rng, d**n)
+    psi = random_state(rng, d**n)
     space = Space.qudits(n, d)
     errs = [trotter_error(order, dt, a, b, space, psi, h) for dt in (0.05, 0.025, 0.0125)]
     slopes = np.diff(np.log(errs)) / np.diff(np.log([0.05, 0.025, 0.0125]))
