@@ -151,9 +151,12 @@ def apply_local(view: np.ndarray, mat: np.ndarray, qudits: Sequence[int]) -> np.
             out = blk[:, :, 0] @ mat.T
         elif n_left == 1:
             out = mat @ blk[0]
+        elif blk.shape[2] >= 256:
+            out = np.matmul(mat, blk)  # few large products
         else:
-            out = np.matmul(mat, blk)
-        return out.reshape(view.shape)
+            # one large product instead of many tiny ones
+            out = np.tensordot(mat, blk, axes=([1], [1])).transpose(1, 0, 2)
+        return np.ascontiguousarray(out).reshape(view.shape)
     tens = mat.reshape((d,) * (2 * k))
     res = np.tensordot(tens, view, axes=(list(range(k, 2 * k)), axes))
     return np.ascontiguousarray(np.moveaxis(res, list(range(k)), axes))

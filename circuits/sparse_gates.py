@@ -109,9 +109,19 @@ class SparseGeneratorGate(Gate):
     def generator(self) -> np.ndarray:
         return self.g.toarray()
 
+    def _phases(self, t: float) -> np.ndarray:
+        """``exp(-i t h)`` of a diagonal generator; the last two angles are cached
+        (fixed-angle circuits and forward/backward passes reuse them)."""
+        cache = self.__dict__.setdefault("_phase_cache", {})
+        if t not in cache:
+            if len(cache) >= 2:
+                cache.pop(next(iter(cache)))
+            cache[t] = np.exp(-1j * t * self.h)
+        return cache[t]
+
     def apply(self, view: np.ndarray, t: float) -> np.ndarray:
         if self.is_diagonal:
-            view *= np.exp(-1j * t * self.h)
+            view *= self._phases(t)
             return view
         if self.phase_idx.size:
             view[:, self.phase_idx] *= np.exp(-1j * t * self.phase_h)
