@@ -149,13 +149,16 @@ class ParametrizedCircuit:
         f = complex(np.vdot(lam, psi))
         grad = np.zeros(p.size, dtype=np.complex128)
         first = next((i for i, op in enumerate(self.ops) if op.index is not None), len(self.ops))
+        # state and costate stacked on the batch axis: one un-apply per gate
+        nb = psi.shape[0]
+        work = np.concatenate([psi, lam])
+        del psi, lam
         for i in range(len(self.ops) - 1, first - 1, -1):
             op, t = self.ops[i], angles[i]
             if op.index is not None:
-                grad[op.index] += -1j * op.scale * op.gate.generator_overlap(lam, psi)
+                grad[op.index] += -1j * op.scale * op.gate.generator_overlap(work[nb:], work[:nb])
             if i > first:
-                psi = op.gate.apply(psi, -t)
-                lam = op.gate.apply(lam, -t)
+                work = op.gate.apply(work, -t)
         return f, grad
 
     def fidelity_and_gradient(
