@@ -221,3 +221,37 @@ def test_xarray_grid_and_runs_command(tmp_path, capsys):
     assert args.func(args) == 0
     text = capsys.readouterr().out
     assert "6 of 6 runs complete" in text and text.count("complete") == 7
+
+
+def test_evolve_sweep_stores_h5md_series(tmp_path):
+    pytest.importorskip("lgt.evolution")
+    cfg = _cfg('''
+[model]
+sites = 4
+levels = 3
+[initial]
+kind = "meson"
+sites = [1, 2]
+[evolution]
+t_final = 1.0
+dt = 0.25
+observables = ["loschmidt_echo", "electric_field"]
+[sweep]
+task = "evolve"
+[sweep.zip]
+"model.mass" = [0.3, 0.8]
+"initial.sites" = [[1, 2], [0, 1]]
+''')
+    out = tmp_path / "ev.h5"
+    assert run_sweep(cfg, out, progress=False).completed == 2
+    data = load_sweep(out)
+    assert data["loschmidt_echo"].shape == (2, 5)
+    assert data["electric_field"].shape == (2, 5, 3)
+    np.testing.assert_allclose(data["loschmidt_echo/time"][0], [0, 0.25, 0.5, 0.75, 1.0])
+    np.testing.assert_allclose(data["loschmidt_echo"][:, 0], 1.0, atol=1e-12)  # |<psi0|psi0>|^2
+    with h5py.File(out, "r") as f:
+        for group in f["runs"].values():
+            series = group["observables/electric_field"]
+            np.testing.assert_array_equal(series["step"][()], np.arange(5))
+            assert series["value"].shape == (5, 3)
+    assert to_xarray(out)["initial.sites"].values.tolist() == ["[1, 2]", "[0, 1]"]

@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 from typing import Any, Mapping
 
 from lgt.config import KNOWN_SECTIONS, as_choice, check_keys
-from lgt.errors import ConfigError
+from lgt.errors import ConfigError, ResourceError
 from lgt.io import canonical_json, flatten
 from lgt.tasks import Task, get_task, task_names
 
@@ -173,6 +173,8 @@ def _validated(base: dict, task: Task, assignments: dict[str, Any], index: int,
             raise ConfigError(f'sweep.{kind}."{exc.key}"', exc.value,
                               f"{where}: {exc.reason}") from None
         raise ConfigError(exc.key, exc.value, f"{where}: {exc.reason}") from None
+    except ResourceError as exc:
+        raise ResourceError(f"point {index} ({_describe(assignments)}): {exc}") from None
 
 
 def _assign(config: dict, dotted: str, value: Any) -> None:

@@ -119,6 +119,13 @@ def _stack(values: list[Any]) -> np.ndarray:
     return out
 
 
+def _coordinate(values: np.ndarray) -> np.ndarray:
+    """1-D coordinate values; list-valued axis entries become their JSON text."""
+    if values.ndim == 1 and values.dtype != object:
+        return values
+    return np.array([json.dumps(np.asarray(v).tolist()) for v in values])
+
+
 def to_xarray(path: str | Path) -> Any:
     """The sweep as an ``xarray.Dataset``.
 
@@ -131,7 +138,7 @@ def to_xarray(path: str | Path) -> Any:
     data = load_sweep(path)
     n = len(data["run_id"])
     axes = list(info["grid"]) + list(info["zip"])
-    coords = {key: ("run", data[key]) for key in ["run_id", "point", *axes]}
+    coords = {key: ("run", _coordinate(data[key])) for key in ["run_id", "point", *axes]}
     variables = {}
     for name, values in data.items():
         if name in coords or values.dtype == object:

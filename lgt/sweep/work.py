@@ -24,20 +24,21 @@ class Outcome:
 def execute_point(task_name: str, resolved: dict[str, Any]) -> Outcome:
     """Run the task ``task_name`` on a resolved point config; never raises ``Exception``.
 
-    ``info`` holds ``started_at`` / ``finished_at`` (Unix seconds), ``wall_seconds`` and
+    ``info`` holds ``started_at`` / ``finished_at`` (Unix seconds), ``wall_seconds``,
+    ``cpu_seconds``,
     ``worker`` (``host:pid``) and ``threads`` (OS threads of the worker after the run).
     """
     from lgt.tasks import get_task
 
     started = time.time()
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     try:
         result, error = get_task(task_name).run(resolved), None
     except Exception as exc:  # reported as a failed run, the sweep goes on
         result = None
         error = f"{type(exc).__name__}: {exc}\n{traceback.format_exc(limit=8)}"
     info = {"started_at": started, "finished_at": time.time(),
-            "wall_seconds": time.perf_counter() - t0,
+            "wall_seconds": time.perf_counter() - t0, "cpu_seconds": time.process_time() - c0,
             "worker": f"{socket.gethostname()}:{os.getpid()}", "threads": _thread_count()}
     return Outcome(result, error, info)
 
