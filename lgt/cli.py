@@ -11,6 +11,9 @@ from lgt.errors import ConfigError, ResourceError
 
 #: Subcommand modules under ``lgt.commands``; each exposes ``register(subparsers)``.
 COMMAND_MODULES = ("spectrum", "demo")
+COMMAND_MODULES += ("evolve",)
+COMMAND_MODULES += ("potential",)
+COMMAND_MODULES += ("plot",)
 
 
 def build_parser() -> argparse.ArgumentParser:

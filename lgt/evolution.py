@@ -131,7 +131,7 @@ def resolve_times(section: Mapping[str, Any]) -> np.ndarray:
         raise ConfigError("evolution.dt", dt, f"t_final = {t_final} must be a whole multiple of dt")
     if steps > 1_000_000:
         raise ConfigError("evolution.dt", dt, f"gives {steps} stored times; at most 1e6")
-    return np.arange(steps + 1) * dt
+    return np.round(np.arange(steps + 1) * dt, 12)
 
 
 def validate_evolution_config(config: Mapping[str, Any]) -> dict[str, Any]:
