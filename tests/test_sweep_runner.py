@@ -255,3 +255,16 @@ task = "evolve"
             np.testing.assert_array_equal(series["step"][()], np.arange(5))
             assert series["value"].shape == (5, 3)
     assert to_xarray(out)["initial.sites"].values.tolist() == ["[1, 2]", "[0, 1]"]
+
+
+def test_command_exit_status_and_message(tmp_path, capsys):
+    from lgt.sweep.__main__ import main
+    config = tmp_path / "bad.toml"
+    config.write_text(BASE.replace('"model.coupling" = [1.0, 2.0]', '"model.coupling" = []'))
+    assert main([str(config), "--output", str(tmp_path / "r.h5"), "--no-progress"]) == 2
+    assert 'sweep.grid."model.coupling" = []: empty axis' in capsys.readouterr().err
+    assert not (tmp_path / "r.h5").exists()
+    config.write_text(BASE)
+    assert main([str(config), "--output", str(tmp_path / "r.h5"), "--no-progress"]) == 0
+    assert "6 runs: 0 already complete, 6 computed, 0 failed" in capsys.readouterr().err
+    assert main([str(config), "-o", str(tmp_path / "r.h5"), "--workers", "0"]) == 2

@@ -36,13 +36,13 @@ def handle(args: argparse.Namespace) -> int:
     if args.merge_every < 0:
         raise ConfigError("--merge-every", args.merge_every, "must be non-negative")
     config = load_config(args.config)
-    expand_sweep(config)  # fail on bad input before starting any worker
+    plan = expand_sweep(config)  # fail on bad input before starting any worker
     executor = make_executor(args.workers, args.scheduler, args.dask_local)
     hint = "fluxline sweep " + " ".join(shlex.quote(a) for a in _resume_argv(args))
     with executor:
         summary = run_sweep(config, args.output, executor, overwrite=args.overwrite,
                             progress=not args.no_progress, merge_every=args.merge_every,
-                            resume_hint=hint)
+                            resume_hint=hint, plan=plan)
     if not summary.interrupted:
         print(f"{summary.total} runs: {summary.skipped} already complete, {summary.completed} "
               f"computed, {summary.failed} failed ({summary.seconds:.1f} s, "

@@ -9,7 +9,7 @@ from pathlib import Path
 from typing import Any, Mapping, TextIO
 
 from lgt.sweep.executors import Executor, SerialExecutor
-from lgt.sweep.plan import expand_sweep
+from lgt.sweep.plan import SweepPlan, expand_sweep
 from lgt.sweep.store import SweepStore
 from lgt.sweep.work import execute_point
 
@@ -33,12 +33,14 @@ class SweepSummary:
 
 def run_sweep(config: Mapping[str, Any], output: str | Path, executor: Executor | None = None,
               *, overwrite: bool = False, progress: bool = True, merge_every: float = 30.0,
-              stream: TextIO | None = None, resume_hint: str | None = None) -> SweepSummary:
+              stream: TextIO | None = None, resume_hint: str | None = None,
+              plan: SweepPlan | None = None) -> SweepSummary:
     """Expand, validate and run the sweep in ``config``, storing runs in ``output``.
 
     Every point is validated and the output checked before the first run starts. Complete
     runs already in ``output`` are skipped. On Ctrl-C the runs finished so far are kept and a
-    message says how to resume; the summary then has ``interrupted=True``.
+    message says how to resume; the summary then has ``interrupted=True``. ``plan`` may pass
+    the result of ``expand_sweep(config)`` when the caller already has it.
 
     Raises
     ------
@@ -47,7 +49,7 @@ def run_sweep(config: Mapping[str, Any], output: str | Path, executor: Executor 
     """
     stream = stream or sys.stderr
     started = time.perf_counter()
-    plan = expand_sweep(config)
+    plan = plan or expand_sweep(config)
     store = SweepStore(output, plan, overwrite=overwrite, merge_every=merge_every)
     done = store.open()
     todo = [p for p in plan.points if p.run_id not in done]
