@@ -87,3 +87,14 @@ def test_executor_choice():
     with pytest.raises(ConfigError) as info:
         make_executor(workers=0)
     assert info.value.key == "--workers" and info.value.value == 0
+
+
+@pytest.mark.slow
+def test_scheduler_address_equals_serial(serial, tmp_path):
+    distributed = pytest.importorskip("distributed")
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None) as cluster:
+        with make_executor(scheduler=cluster.scheduler_address) as runner:
+            assert "2 workers" in runner.describe()
+            run_sweep(CONFIG, tmp_path / "remote.h5", runner, progress=False)
+    _assert_same(load_sweep(tmp_path / "remote.h5"), serial)

@@ -40,13 +40,14 @@ def handle(args: argparse.Namespace) -> int:
     executor = make_executor(args.workers, args.scheduler, args.dask_local)
     hint = "fluxline sweep " + " ".join(shlex.quote(a) for a in _resume_argv(args))
     with executor:
+        where = executor.describe()
         summary = run_sweep(config, args.output, executor, overwrite=args.overwrite,
                             progress=not args.no_progress, merge_every=args.merge_every,
                             resume_hint=hint, plan=plan)
     if not summary.interrupted:
         print(f"{summary.total} runs: {summary.skipped} already complete, {summary.completed} "
               f"computed, {summary.failed} failed ({summary.seconds:.1f} s, "
-              f"{executor.describe() if summary.completed else 'no executor work'})",
+              f"{where if summary.completed else 'no executor work'})",
               file=sys.stderr)
     return summary.exit_code
 

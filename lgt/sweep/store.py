@@ -36,6 +36,8 @@ from lgt.io import (STATUS_COMPLETE, atomic_h5, canonical_json, run_status, writ
 from lgt.results import RunResult
 from lgt.sweep.plan import SweepPlan, SweepPoint
 
+#: A merge waits at least this many times the duration of the previous merge.
+MERGE_COST_FACTOR = 20.0
 #: Run status of a run whose task raised an exception (redone on the next start).
 STATUS_FAILED = "failed"
 
@@ -67,6 +69,7 @@ class SweepStore:
         self.merge_every = merge_every
         self._lock_fd: int | None = None
         self._last_merge = time.monotonic()
+        self._merge_seconds = 0.0
 
     # ------------------------------------------------------------------ lifecycle
     def open(self) -> set[str]:
@@ -137,8 +140,13 @@ class SweepStore:
 
     # ------------------------------------------------------------------ merging
     def maybe_merge(self) -> None:
-        """Merge when ``merge_every`` seconds have passed since the last merge."""
-        if time.monotonic() - self._last_merge >= self.merge_every:
+        """Merge when ``merge_every`` seconds have passed since the last merge.
+
+        A positive interval stretches to 20 times the duration of the last merge, so copying a
+        large main file takes at most ~5 % of the coordinator's time; 0 merges after every run.
+        """
+        interval = self.merge_every and max(self.merge_every, MERGE_COST_FACTOR * self._merge_seconds)
+        if time.monotonic() - self._last_merge >= interval:
             self.merge()
 
     def merge(self, drop_incomplete: bool = False) -> int:
@@ -147,6 +155,7 @@ class SweepStore:
         parts = self._part_files()
         if not parts and not (drop_incomplete and self._has_incomplete()):
             return 0
+        started = time.perf_counter()
         with atomic_h5(self.path, copy_from=self.path) as f:
             runs = f.require_group("runs")
             if drop_incomplete:
@@ -156,6 +165,8 @@ class SweepStore:
                 self._merge_part(part, runs)
         for part in parts:
             part.unlink(missing_ok=True)
+        self._merge_seconds = time.perf_counter() - started
+        self._last_merge = time.monotonic()
         return len(parts)
 
     @staticmethod
