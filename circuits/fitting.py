@@ -43,10 +43,13 @@ def fit_to_target(
     params0: np.ndarray | None = None,
     tol: float = 1e-10,
     maxiter: int = 500,
+    stop_infidelity: float | None = None,
 ) -> FitResult:
     """Maximise ``|<target|C(theta)|psi0>|^2`` (normalised) from ``params0`` (default 0).
 
-    ``tol`` is passed to L-BFGS-B as ``ftol`` and ``gtol`` on the infidelity ``1 - F``.
+    ``tol`` is passed to L-BFGS-B as ``ftol`` and ``gtol`` on the infidelity ``1 - F``;
+    with ``stop_infidelity`` the optimiser also stops as soon as ``1 - F <= stop_infidelity``
+    (checked before the first iteration too, so an already good start costs one evaluation).
     """
     norm = float(np.vdot(target, target).real * np.vdot(psi0, psi0).real)
     if norm <= 0:
@@ -58,11 +61,18 @@ def fit_to_target(
         return 1.0 - fid / norm, -grad / norm
 
     start = time.perf_counter()
-    if p0.size == 0:
+    if p0.size == 0 or stop_infidelity is not None:
         val, _ = loss(p0)
-        return FitResult(p0, 1.0 - val, 0, 1, time.perf_counter() - start)
+        if p0.size == 0 or val <= stop_infidelity:
+            return FitResult(p0, 1.0 - val, 0, 1, time.perf_counter() - start)
+
+    def reached(intermediate_result) -> None:
+        if stop_infidelity is not None and intermediate_result.fun <= stop_infidelity:
+            raise StopIteration
+
     res = minimize(
-        loss, p0, jac=True, method="L-BFGS-B", options={"maxiter": maxiter, "ftol": tol, "gtol": tol}
+        loss, p0, jac=True, method="L-BFGS-B", callback=reached,
+        options={"maxiter": maxiter, "ftol": tol, "gtol": tol},
     )
     return FitResult(
         np.asarray(res.x),
