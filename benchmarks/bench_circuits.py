@@ -4,7 +4,11 @@
    K = 8..12 qudits at d = 3 and K = 8..11 at d = 5 (d = 5, K = 12 needs 3.9 GB per vector);
 2. subspace mode: sparse-generator gates with 2-state blocks, dim 1e5 and 1e6;
 3. adjoint gradient cost / forward cost for about 50, 200, 800 parameters;
-4. our local application against the naive route (dense d^K x d^K gate matrix).
+4. our local application against the naive route (dense d^K x d^K gate matrix);
+5. small circuits (per-gate overhead): native brickwork, 4 layers, K = 3, 5, 7 at d = 3, and
+   64 sparse pair-block generators in subspace mode (dim 1e3, 1e4): forward us per gate
+   and fidelity+gradient ms per call (what one L-BFGS iteration costs);
+6. ``compile_unitary`` cost per loss evaluation on a 3-qutrit 27 x 27 target.
 """
 from __future__ import annotations
 
@@ -21,10 +25,11 @@ from typing import Callable
 import numpy as np
 import scipy.sparse as sp
 
+from circuits.circuit import ParametrizedCircuit
 from circuits.gates import DiagonalGate, GeneratorGate, MSGate, TwoLevelRotation
 from circuits.layers import NativeLayerSpec, native_brickwork
 from circuits.random_circuits import random_hermitian, random_sparse_generator, random_state
-from circuits.register import embed_local
+from circuits.register import Space, embed_local
 from circuits.sparse_gates import SparseGeneratorGate
 
 
@@ -114,11 +119,48 @@ def naive(rng: np.random.Generator, d: int, ks: list[int]) -> None:
         print(f"{k:>3} {d**k:>6} {1e3 * t_dense:>9.3f} {1e3 * t_local:>9.3f} {t_dense / t_local:>11.1f}")
 
 
+def small_circuits(rng: np.random.Generator) -> None:
+    print("\n## small circuits: forward us/gate, fidelity+gradient ms/call, gradient/forward")
+    print(f"{'circuit':>24} {'dim':>6} {'gates':>6} {'fwd us/gate':>12} {'fid+grad ms':>12} {'ratio':>6}")
+    cases = []
+    for k in (3, 5, 7):
+        cases.append((f"brickwork K={k} d=3", native_brickwork(k, 3, 4), 3**k))
+    for dim in (10**3, 10**4):
+        space = Space.subspace(dim)
+        c = ParametrizedCircuit(space)
+        for i in range(64):
+            c.append(SparseGeneratorGate(random_sparse_generator(rng, dim, dim // 5, dim // 5)), i)
+        cases.append((f"64 sparse pair gates", c, dim))
+    for name, c, dim in cases:
+        p = rng.normal(size=c.n_params)
+        psi, phi = random_state(rng, dim), random_state(rng, dim)
+        t_f = best_time(lambda: c.apply(p, psi), repeat=3)
+        t_g = best_time(lambda: c.fidelity_and_gradient(p, psi, phi), repeat=3)
+        print(f"{name:>24} {dim:>6} {len(c):>6} {1e6 * t_f / len(c):>12.1f} {1e3 * t_g:>12.2f} {t_g / t_f:>6.2f}")
+
+
+def compile_cost(rng: np.random.Generator) -> None:
+    print("\n## compile_unitary inner loop: one loss+gradient on the batch of 27 basis states (K=3, d=3)")
+    print(f"{'layers':>7} {'gates':>6} {'ms/eval':>8}")
+    basis = np.eye(27, dtype=np.complex128)
+    images = np.ascontiguousarray(np.linalg.qr(random_state(rng, (27, 27)))[0].T)
+    for layers in (6, 9):
+        c = native_brickwork(3, 3, layers)
+        p = rng.normal(size=c.n_params)
+        t_g = best_time(lambda: c.fidelity_and_gradient(p, basis, images), repeat=3)
+        print(f"{layers:>7} {len(c):>6} {1e3 * t_g:>8.2f}")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="small sizes only")
+    ap.add_argument("--small", action="store_true", help="only the small-circuit sections (5, 6)")
     args = ap.parse_args()
     rng = np.random.default_rng(0)
+    if args.small:
+        small_circuits(rng)
+        compile_cost(rng)
+        return
     if args.quick:
         sizes = [(3, 8), (5, 6)]
     else:
@@ -127,6 +169,8 @@ def main() -> None:
     subspace(rng)
     gradient_cost(rng, 6 if args.quick else 10, 3)
     naive(rng, 3, [4, 5, 6, 7])
+    small_circuits(rng)
+    compile_cost(rng)
 
 
 if __name__ == "__main__":

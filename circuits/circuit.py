@@ -13,7 +13,7 @@ overlaps of batches are summed, ``sum_b <phi_b|C|psi_b>`` (a trace for basis bat
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Iterable, Sequence
+from typing import Iterable, NamedTuple, Sequence
 
 import numpy as np
 
@@ -21,6 +21,21 @@ from .gates import Gate
 from .register import Space, from_view, to_view
 
 __all__ = ["Op", "ParametrizedCircuit"]
+
+#: states with at most this many amplitudes (batch included) take the flat fast path:
+#: per-gate index arrays precomputed once, gather / closed form / scatter per gate
+SMALL_STATE = 8192
+
+
+class _Compiled(NamedTuple):
+    """Per-circuit arrays, rebuilt only when the op list or parameter count changes."""
+
+    ops: tuple[Op, ...]
+    n_params: int
+    index: np.ndarray  # parameter index per gate (n_params for fixed gates)
+    scale: np.ndarray  # 0 for fixed gates
+    offset: np.ndarray
+    first: int  # first parametrised gate (len(ops) if none)
 
 
 @dataclass(frozen=True)
@@ -102,16 +117,38 @@ class ParametrizedCircuit:
     @property
     def n_params(self) -> int:
         """Number of parameters (largest bound index + 1, at least the declared size)."""
-        used = [op.index for op in self.ops if op.index is not None]
-        return max([self._n_params] + [i + 1 for i in used])
+        return self._compiled().n_params
+
+    def _compiled(self) -> _Compiled:
+        """Angle arrays of the current op list (cached; ``self.ops`` may be edited)."""
+        cached = self.__dict__.get("_cache")
+        ops = self.ops
+        if (
+            cached is not None
+            and len(cached.ops) == len(ops)
+            and cached.n_params >= self._n_params
+            and all(a is b for a, b in zip(cached.ops, ops))
+        ):
+            return cached
+        used = [op.index for op in ops if op.index is not None]
+        n = max([self._n_params] + [i + 1 for i in used])
+        index = np.array([n if op.index is None else op.index for op in ops], dtype=np.intp)
+        scale = np.array([0.0 if op.index is None else op.scale for op in ops], dtype=np.float64)
+        offset = np.array([op.offset for op in ops], dtype=np.float64)
+        first = next((i for i, op in enumerate(ops) if op.index is not None), len(ops))
+        self._cache = _Compiled(tuple(ops), n, index, scale, offset, first)
+        return self._cache
 
     def __len__(self) -> int:
         return len(self.ops)
 
     def angles(self, params: Sequence[float] | None) -> np.ndarray:
         """Resolved angle of every gate, in order."""
-        p = self._params(params)
-        return np.array([op.angle(p) for op in self.ops], dtype=np.float64)
+        return self._angles(self._params(params))
+
+    def _angles(self, p: np.ndarray) -> np.ndarray:
+        comp = self._compiled()
+        return comp.offset + comp.scale * np.append(p, 0.0)[comp.index]
 
     def _params(self, params: Sequence[float] | None) -> np.ndarray:
         p = np.zeros(0) if params is None else np.asarray(params, dtype=np.float64).ravel()
@@ -120,7 +157,17 @@ class ParametrizedCircuit:
         return p
 
     # -- evaluation ---------------------------------------------------------
+    def _plans(self) -> list[object]:
+        """Each gate's flat fast-path plan for this space (cached on the gates)."""
+        shape = self.space.shape
+        return [op.gate._plan(shape) for op in self.ops]
+
     def _forward(self, angles: Iterable[float], view: np.ndarray) -> np.ndarray:
+        if view.size <= SMALL_STATE:
+            flat = view.reshape(view.shape[0], -1)
+            for op, t, plan in zip(self.ops, angles, self._plans()):
+                flat = op.gate._apply_flat(flat, t, plan)
+            return flat.reshape(view.shape)
         for op, t in zip(self.ops, angles):
             view = op.gate.apply(view, t)
         return view
@@ -128,7 +175,7 @@ class ParametrizedCircuit:
     def apply(self, params: Sequence[float] | None, psi0: np.ndarray) -> np.ndarray:
         """``C(params) psi0`` for a flat state ``(dim,)`` or batch ``(B, dim)``."""
         view, batched = to_view(psi0, self.space)
-        return from_view(self._forward(self.angles(params), view), batched)
+        return from_view(self._forward(self.angles(params).tolist(), view), batched)
 
     def overlap_and_gradient(
         self, params: Sequence[float] | None, psi0: np.ndarray, phi: np.ndarray
@@ -140,26 +187,40 @@ class ParametrizedCircuit:
         ``-i scale <costate| G_i |state>``.  Cost about three forward passes.
         """
         p = self._params(params)
-        angles = self.angles(p)
+        comp = self._compiled()
+        angles = self._angles(p).tolist()
         psi, _ = to_view(psi0, self.space)
         lam, _ = to_view(phi, self.space)
         if lam.shape != psi.shape:
             raise ValueError(f"phi shape {lam.shape} differs from psi0 shape {psi.shape}")
         psi = self._forward(angles, psi)
         f = complex(np.vdot(lam, psi))
-        grad = np.zeros(p.size, dtype=np.complex128)
-        first = next((i for i, op in enumerate(self.ops) if op.index is not None), len(self.ops))
+        first = comp.first
         # state and costate stacked on the batch axis: one un-apply per gate
         nb = psi.shape[0]
         work = np.concatenate([psi, lam])
         del psi, lam
-        for i in range(len(self.ops) - 1, first - 1, -1):
-            op, t = self.ops[i], angles[i]
-            if op.index is not None:
-                grad[op.index] += -1j * op.scale * op.gate.generator_overlap(work[nb:], work[:nb])
-            if i > first:
-                work = op.gate.apply(work, -t)
-        return f, grad
+        # per-gate overlaps <lam_i|G_i|psi_i>, scattered onto the parameters at the end
+        ovs = np.zeros(len(self.ops), dtype=np.complex128)
+        if work.size <= 2 * SMALL_STATE:
+            flat = work.reshape(work.shape[0], -1)
+            plans = self._plans()
+            for i in range(len(self.ops) - 1, first - 1, -1):
+                gate, t = self.ops[i].gate, angles[i]
+                if self.ops[i].index is not None:
+                    ovs[i], flat = gate._overlap_unapply(flat, nb, t, plans[i], i > first)
+                elif i > first:
+                    flat = gate._apply_flat(flat, -t, plans[i])
+        else:
+            for i in range(len(self.ops) - 1, first - 1, -1):
+                op, t = self.ops[i], angles[i]
+                if op.index is not None:
+                    ovs[i] = op.gate.generator_overlap(work[nb:], work[:nb])
+                if i > first:
+                    work = op.gate.apply(work, -t)
+        grad = np.bincount(comp.index, weights=(-1j * comp.scale * ovs).real, minlength=p.size + 1)
+        grad = grad + 1j * np.bincount(comp.index, weights=(-1j * comp.scale * ovs).imag, minlength=p.size + 1)
+        return f, grad[: p.size]
 
     def fidelity_and_gradient(
         self, params: Sequence[float] | None, psi0: np.ndarray, phi: np.ndarray

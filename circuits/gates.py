@@ -21,6 +21,8 @@ Gates act on canonical views ``(B, d, ..., d)`` (see :mod:`circuits.register`).
 """
 from __future__ import annotations
 
+import cmath
+import math
 from abc import ABC, abstractmethod
 from typing import Sequence
 
@@ -55,6 +57,31 @@ def two_level_ops(j: int, k: int, d: int) -> tuple[np.ndarray, np.ndarray, np.nd
 def _idx(ndim: int, assign: dict[int, int]) -> tuple:
     """Index tuple selecting fixed levels on some canonical-view axes."""
     return tuple(assign.get(ax, slice(None)) for ax in range(ndim))
+
+
+def _flat_levels(shape: tuple[int, ...]) -> np.ndarray:
+    """``(K, dim)`` level of every qudit in every flat basis index (row-major)."""
+    return np.indices(shape).reshape(len(shape), -1)
+
+
+def _where_levels(levels: np.ndarray, assign: dict[int, int]) -> np.ndarray:
+    """Sorted flat indices whose qudit ``q`` is at level ``assign[q]`` for every key."""
+    mask = np.ones(levels.shape[1], dtype=bool)
+    for q, lev in assign.items():
+        mask &= levels[q] == lev
+    return np.flatnonzero(mask)
+
+
+def _pair_rotate(
+    x: np.ndarray, ia: np.ndarray, ib: np.ndarray, c: complex, m_ab: object, m_ba: object
+) -> tuple[np.ndarray, np.ndarray]:
+    """``(x_a, x_b) <- (c x_a + m_ab x_b, m_ba x_a + c x_b)`` on gathered pairs; returns
+    the gathered (old) ``x_a, x_b``."""
+    a = x[:, ia]
+    b = x[:, ib]
+    x[:, ia] = c * a + m_ab * b
+    x[:, ib] = m_ba * a + c * b
+    return a, b
 
 
 class Gate(ABC):
@@ -96,6 +123,35 @@ class Gate(ABC):
         w, v = np.linalg.eigh(self.generator())
         return (v * np.exp(-1j * t * w)) @ v.conj().T
 
+    # -- flat fast path (small states; used by the circuit engine) ------------
+    def _plan(self, shape: tuple[int, ...]) -> object:
+        """Per-space precomputation for :meth:`_apply_flat`, cached by ``shape``."""
+        cache = self.__dict__.setdefault("_plans", {})
+        plan = cache.get(shape)
+        if plan is None:
+            plan = cache[shape] = self._make_plan(shape)
+        return plan
+
+    def _make_plan(self, shape: tuple[int, ...]) -> object:
+        return tuple(shape)
+
+    def _apply_flat(self, x: np.ndarray, t: float, plan: object) -> np.ndarray:
+        """``U(t)`` on a flat ``(B, dim)`` array (may overwrite it); returns the result."""
+        shape = (x.shape[0],) + plan  # default plan: the space shape
+        return self.apply(x.reshape(shape), t).reshape(x.shape)
+
+    def _overlap_unapply(
+        self, work: np.ndarray, nb: int, t: float, plan: object, unapply: bool
+    ) -> tuple[complex, np.ndarray]:
+        """``<lam|G|psi>`` for ``work = [psi; lam]`` (flat, ``nb`` rows each), then
+        optionally ``U(-t)`` on all rows."""
+        shape = (work.shape[0],) + plan
+        view = work.reshape(shape)
+        ov = complex(self.generator_overlap(view[nb:], view[:nb]))
+        if unapply:
+            work = self.apply(view, -t).reshape(work.shape)
+        return ov, work
+
 
 class TwoLevelRotation(Gate):
     """``R^{jk}(t, phi)`` on one qudit; ``G = (cos phi X^{jk} + sin phi Y^{jk}) / 2``.
@@ -132,6 +188,33 @@ class TwoLevelRotation(Gate):
         ij, ik = _idx(psi.ndim, {ax: self.j}), _idx(psi.ndim, {ax: self.k})
         e = np.exp(1j * self.phi)
         return 0.5 * (np.vdot(lam[ij], psi[ik]) / e + np.vdot(lam[ik], psi[ij]) * e)
+
+    def _make_plan(self, shape: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray]:
+        lv = _flat_levels(shape)
+        q = self.qudits[0]
+        return _where_levels(lv, {q: self.j}), _where_levels(lv, {q: self.k})
+
+    def _coeffs(self, t: float) -> tuple[float, complex, complex]:
+        c, s = math.cos(0.5 * t), math.sin(0.5 * t)
+        e = cmath.exp(1j * self.phi)
+        return c, -1j * s / e, -1j * s * e
+
+    def _apply_flat(self, x: np.ndarray, t: float, plan: object) -> np.ndarray:
+        ij, ik = plan
+        _pair_rotate(x, ij, ik, *self._coeffs(t))
+        return x
+
+    def _overlap_unapply(
+        self, work: np.ndarray, nb: int, t: float, plan: object, unapply: bool
+    ) -> tuple[complex, np.ndarray]:
+        ij, ik = plan
+        if unapply:
+            a, b = _pair_rotate(work, ij, ik, *self._coeffs(-t))
+        else:
+            a, b = work[:, ij], work[:, ik]
+        e = cmath.exp(1j * self.phi)
+        ov = 0.5 * (np.vdot(a[nb:], b[:nb]) / e + np.vdot(b[nb:], a[:nb]) * e)
+        return complex(ov), work
 
 
 class MSGate(Gate):
@@ -181,6 +264,37 @@ class MSGate(Gate):
         view[kj] += (-1j * s) * a_jk
         return view
 
+    def _make_plan(self, shape: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        # pairs (jj, kk) and (jk, kj) stacked; weight 1/e2 resp. 1 on the first member
+        lv = _flat_levels(shape)
+        q1, q2 = self.qudits
+        j, k = self.j, self.k
+        first = np.concatenate([_where_levels(lv, {q1: j, q2: j}), _where_levels(lv, {q1: j, q2: k})])
+        second = np.concatenate([_where_levels(lv, {q1: k, q2: k}), _where_levels(lv, {q1: k, q2: j})])
+        n = first.size // 2
+        w = np.ones(first.size, dtype=np.complex128)
+        w[:n] = np.exp(-2j * self.phi)
+        return first, second, w
+
+    def _apply_flat(self, x: np.ndarray, t: float, plan: object) -> np.ndarray:
+        first, second, w = plan
+        ms = -1j * math.sin(t)
+        _pair_rotate(x, first, second, math.cos(t), ms * w, ms * w.conj())
+        return x
+
+    def _overlap_unapply(
+        self, work: np.ndarray, nb: int, t: float, plan: object, unapply: bool
+    ) -> tuple[complex, np.ndarray]:
+        first, second, w = plan
+        if unapply:
+            ms = 1j * math.sin(t)
+            a, b = _pair_rotate(work, first, second, math.cos(t), ms * w, ms * w.conj())
+        else:
+            a, b = work[:, first], work[:, second]
+        # <lam|G|psi> = sum conj(lam_a) w psi_b + conj(lam_b) conj(w) psi_a
+        ov = np.vdot(a[nb:], w * b[:nb]) + np.vdot(b[nb:], w.conj() * a[:nb])
+        return complex(ov), work
+
     def generator_overlap(self, lam: np.ndarray, psi: np.ndarray) -> complex:
         jj, jk, kj, kk = self._slices(psi.ndim)
         e2 = np.exp(2j * self.phi)
@@ -224,6 +338,23 @@ class DiagonalGate(Gate):
     def generator_overlap(self, lam: np.ndarray, psi: np.ndarray) -> complex:
         rho = local_transition(lam, psi, self.qudits)
         return complex(np.dot(np.diagonal(rho), self.h.ravel()))
+
+    def _make_plan(self, shape: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray]:
+        lv = _flat_levels(shape)
+        tidx = np.ravel_multi_index(tuple(lv[q] for q in self.qudits), self.h.shape)
+        return tidx, self.h.ravel()[tidx]
+
+    def _apply_flat(self, x: np.ndarray, t: float, plan: object) -> np.ndarray:
+        x *= np.exp(-1j * t * self.h.ravel()).take(plan[0])
+        return x
+
+    def _overlap_unapply(
+        self, work: np.ndarray, nb: int, t: float, plan: object, unapply: bool
+    ) -> tuple[complex, np.ndarray]:
+        ov = complex(np.vdot(work[nb:], work[:nb] * plan[1]))
+        if unapply:
+            work = self._apply_flat(work, -t, plan)
+        return ov, work
 
 
 class GeneratorGate(Gate):
