@@ -10,10 +10,7 @@ from lgt import __version__
 from lgt.errors import ConfigError, ResourceError
 
 #: Subcommand modules under ``lgt.commands``; each exposes ``register(subparsers)``.
-COMMAND_MODULES = ("spectrum", "demo")
-COMMAND_MODULES += ("evolve",)
-COMMAND_MODULES += ("potential",)
-COMMAND_MODULES += ("plot",)
+COMMAND_MODULES = ("demo", "spectrum", "evolve", "potential", "plot", "fit", "size", "sweep", "runs")
 
 
 def build_parser() -> argparse.ArgumentParser:

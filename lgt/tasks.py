@@ -22,8 +22,8 @@ from lgt.results import RunResult
 TASK_MODULES: dict[str, str] = {
     "spectrum": "lgt.tasks",
     "evolve": "lgt.evolution",
-    "fit": "lgt.variational",
-    "size": "lgt.variational",
+    "fit": "lgt.variational.workflow",
+    "size": "lgt.variational.workflow",
 }
 
 

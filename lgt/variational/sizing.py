@@ -1,0 +1,149 @@
+"""Depth sizing: the least number of layers whose fitted trajectory meets the tolerance over
+[0, T], the gate-error budget of each depth, and the Trotter baseline in native gates."""
+
+from __future__ import annotations
+
+import time
+from dataclasses import asdict, dataclass, field
+from typing import Callable
+
+import numpy as np
+
+from circuits.hardware import HardwareProfile
+from circuits.trotter import trotter_schedule
+from lgt.basis import PhysicalBasis
+from lgt.variational.ansatz import make_ansatz, ordered_terms
+from lgt.variational.budget import CircuitCost, ansatz_cost
+from lgt.variational.comparison import compare_to_exact, make_observer
+from lgt.variational.native_cost import TermCost, summed_cost
+from lgt.variational.settings import VariationalSettings
+from lgt.variational.stepper import VariationalTrajectory, fit_trajectory
+from lgt.variational.trotter_baseline import least_trotter_steps
+
+#: Observables whose errors decide the ``observables`` criterion.
+CRITERION_OBSERVABLES = ("electric_field", "particle_density")
+
+
+@dataclass
+class DepthRow:
+    """One depth D of the sizing table (fidelities over the whole window [0, T])."""
+
+    layers: int
+    parameters: int
+    max_infidelity: float
+    final_fidelity: float
+    sum_step_infidelity: float
+    max_leakage: float
+    max_observable_error: float
+    single_qudit_gates: int
+    two_qudit_gates: int
+    other_gates: int
+    duration_us: float
+    noise_fidelity: float
+    total_fidelity: float
+    fit_seconds: float
+    meets_tolerance: bool
+
+
+@dataclass
+class TrotterRow:
+    """Least Trotter steps of one order meeting the tolerance, with the native cost at T."""
+
+    order: int
+    steps: int | None
+    max_infidelity: float
+    single_qudit_gates: int
+    two_qudit_gates: int
+    other_gates: int
+    duration_us: float
+    noise_fidelity: float
+    total_fidelity: float
+
+
+@dataclass
+class SizingResult:
+    rows: list[DepthRow]
+    chosen: int | None
+    best_under_noise: int | None
+    trotter: list[TrotterRow]
+    shots: dict[str, int]
+    trajectories: dict[int, VariationalTrajectory] = field(default_factory=dict)
+
+    def table(self) -> list[dict]:
+        return [asdict(r) for r in self.rows]
+
+
+def evaluate_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSettings, layers: int,
+                   profile: HardwareProfile, term_costs: dict[str, TermCost],
+                   progress: Callable[[int], None] | None = None) -> tuple[DepthRow, VariationalTrajectory]:
+    """Fit D = ``layers`` over the window and summarise it."""
+    ansatz = make_ansatz(basis, settings.family, layers, settings.angles, settings.native_spec())
+    t0 = time.perf_counter()
+    traj = fit_trajectory(ansatz, psi0, settings.dt, settings.n_steps, settings.step_tolerance,
+                          settings.maxiter, settings.mode, settings.restarts, settings.seed, progress)
+    seconds = time.perf_counter() - t0
+    comparison = compare_to_exact(make_observer(traj, basis), traj)
+    obs_err = max(comparison[name]["max_error"] for name in CRITERION_OBSERVABLES)
+    cost = ansatz_cost(ansatz, profile, term_costs)
+    if settings.criterion == "fidelity":
+        meets = traj.max_infidelity <= settings.tolerance
+    else:
+        meets = obs_err <= settings.observable_tolerance
+    row = DepthRow(layers, ansatz.n_params, traj.max_infidelity, float(traj.fidelity[-1]),
+                   float(traj.step_infidelity.sum()), float(traj.leakage.max()), obs_err,
+                   cost.single_qudit, cost.two_qudit, cost.other, cost.duration_us, cost.fidelity,
+                   float(np.min(traj.fidelity)) * cost.fidelity, seconds, bool(meets))
+    return row, traj
+
+
+def trotter_cost(basis: PhysicalBasis, term_costs: dict[str, TermCost], steps: int, order: int) -> CircuitCost:
+    """Native cost of ``steps`` Trotter steps (groups diagonal / hop-even / hop-odd, fused halves)."""
+    groups: dict[str, list[TermCost]] = {}
+    for kind, index, group in ordered_terms(basis.params):
+        groups.setdefault(group, []).append(term_costs[f"{kind}{index}"])
+    names = list(groups)
+    per_group = [summed_cost(groups[g], g) for g in names]
+    total = summed_cost([per_group[g] for g, _, _ in trotter_schedule(len(names), steps, order, fuse=True)], "trotter")
+    return CircuitCost(total.counts, total.fidelity, total.duration_us)
+
+
+def trotter_rows(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSettings,
+                 term_costs: dict[str, TermCost]) -> list[TrotterRow]:
+    """Least Trotter steps meeting the tolerance for each configured order, with native costs."""
+    rows = []
+    for order in settings.trotter_orders:
+        res = least_trotter_steps(basis, psi0, settings.t_final, settings.tolerance, order, settings.trotter_max_steps)
+        if res.steps is None:
+            rows.append(TrotterRow(order, None, res.max_infidelity, 0, 0, 0, 0.0, 0.0, 0.0))
+            continue
+        cost = trotter_cost(basis, term_costs, res.steps, order)
+        rows.append(TrotterRow(order, res.steps, res.max_infidelity, cost.single_qudit, cost.two_qudit,
+                               cost.other, cost.duration_us, cost.fidelity, (1 - res.max_infidelity) * cost.fidelity))
+    return rows
+
+
+def size_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSettings,
+               profile: HardwareProfile, term_costs: dict[str, TermCost],
+               log: Callable[[str], None] | None = None) -> SizingResult:
+    """Scan D = 1 … max_layers until the tolerance is met (plus one deeper for the budget)."""
+    from lgt.variational.shots import shots_needed
+
+    rows: list[DepthRow] = []
+    trajectories: dict[int, VariationalTrajectory] = {}
+    chosen = None
+    for layers in range(1, settings.max_layers + 1):
+        row, traj = evaluate_depth(basis, psi0, settings, layers, profile, term_costs)
+        rows.append(row)
+        trajectories[layers] = traj
+        if log:
+            log(f"D = {layers}: max infidelity {row.max_infidelity:.2e}, {row.two_qudit_gates} two-qudit gates, "
+                f"{row.fit_seconds:.1f} s")
+        if chosen is not None:
+            break  # one layer past the chosen depth, to show the budget trend
+        if row.meets_tolerance:
+            chosen = layers
+    best = max(rows, key=lambda r: r.total_fidelity).layers if rows else None
+    trotter = trotter_rows(basis, psi0, settings, term_costs)
+    reference = trajectories[chosen if chosen is not None else rows[-1].layers]
+    shots = shots_needed(basis, reference.exact_states, settings.shots_error)
+    return SizingResult(rows, chosen, best, trotter, shots, trajectories)
