@@ -188,16 +188,23 @@ def validate_evolution_config(config: Mapping[str, Any]) -> dict[str, Any]:
 
 # ---------------------------------------------------------------------- propagation
 class SchrodingerOperator(LinearOperator):
-    """A = sign · (−i) H for real symmetric sparse H, applied blockwise by threads.
+    """A = sign · (−i) (H − shift) for real symmetric sparse H, applied blockwise by threads.
 
-    ``sign = −1`` gives the adjoint +iH (needed by the 1-norm estimator of ``expm_multiply``).
+    ``sign = −1`` gives the adjoint (needed by the 1-norm estimator of ``expm_multiply``).
+    ``shift`` defaults to the midpoint of the diagonal, which minimises the diagonal's share of
+    ‖A‖₁ (about 10 % below scipy's own trace/n shift at N = 20), so fewer Taylor terms are needed.
     """
 
     def __init__(self, H: sp.csr_matrix, threads: int | None = None, sign: int = 1,
-                 _blocks: list | None = None, _pool: ThreadPoolExecutor | None = None) -> None:
+                 shift: float | None = None, _blocks: list | None = None,
+                 _pool: ThreadPoolExecutor | None = None) -> None:
         super().__init__(np.complex128, H.shape)
         self.matrix = H
         self.sign = sign
+        if shift is None:
+            diag = H.diagonal()
+            shift = 0.5 * float(diag.max() + diag.min()) if diag.size else 0.0
+        self.shift = shift
         if _blocks is None:
             threads = threads or min(os.cpu_count() or 1, 4)
             edges = np.linspace(0, H.shape[0], threads + 1).astype(int)
@@ -213,19 +220,29 @@ class SchrodingerOperator(LinearOperator):
 
     def _matmat(self, X: np.ndarray) -> np.ndarray:
         X = np.ascontiguousarray(X, dtype=np.complex128)
-        k = X.shape[1]
-        hx = self.real_apply(X.view(np.float64).reshape(X.shape[0], 2 * k))
-        return np.ascontiguousarray(hx).view(np.complex128).reshape(X.shape) * (-1j * self.sign)
+        n, k = X.shape
+        xr = X.view(np.float64).reshape(n, 2 * k)
+        hx = self.real_apply(xr)
+        if self.shift:
+            hx -= self.shift * xr
+        hx = hx.reshape(n, k, 2)
+        out = np.empty((n, k), dtype=np.complex128)
+        parts = out.view(np.float64).reshape(n, k, 2)
+        # ∓i (a + ib) = ±b ∓ ia, written straight into the real view (no complex multiply)
+        np.multiply(hx[..., 1], self.sign, out=parts[..., 0])
+        np.multiply(hx[..., 0], -self.sign, out=parts[..., 1])
+        return out
 
     def _matvec(self, x: np.ndarray) -> np.ndarray:
         return self._matmat(np.reshape(x, (-1, 1))).ravel()
 
     def _adjoint(self) -> "SchrodingerOperator":
-        return SchrodingerOperator(self.matrix, sign=-self.sign, _blocks=self.blocks, _pool=self.pool)
+        return SchrodingerOperator(self.matrix, sign=-self.sign, shift=self.shift,
+                                   _blocks=self.blocks, _pool=self.pool)
 
     def hamiltonian_matvec(self, psi: np.ndarray) -> np.ndarray:
-        """H ψ (complex ψ, real H)."""
-        return self._matvec(psi) * (1j * self.sign)
+        """H ψ (complex ψ, real H; the shift added back)."""
+        return self._matvec(psi) * (1j * self.sign) + self.shift * psi
 
     def close(self) -> None:
         if self.pool is not None:
@@ -246,7 +263,6 @@ def propagate(op: SchrodingerOperator, psi0: np.ndarray, times: np.ndarray,
     Uniform grids go through the start/stop/num form of ``expm_multiply`` in chunks holding at
     most ``chunk_bytes`` of vectors; otherwise each interval is one call.
     """
-    trace = -1j * op.sign * float(op.matrix.diagonal().sum())
     psi = np.ascontiguousarray(psi0, dtype=np.complex128)
     t_now = 0.0
     i = 0
@@ -260,9 +276,12 @@ def propagate(op: SchrodingerOperator, psi0: np.ndarray, times: np.ndarray,
         k = min(per_chunk, times.size - i) if uniform and i > 0 else 1
         t_end = times[i + k - 1]
         with single_threaded_blas():  # vector algebra only; H products are threaded by ``op``
+            # traceA = 0: ``op`` is already shifted, scipy must not shift again
             out = expm_multiply(op, psi, start=0.0, stop=t_end - t_now, num=k + 1, endpoint=True,
-                                traceA=trace)
+                                traceA=0.0)
+        phases = np.exp(-1j * op.sign * op.shift * (np.asarray(times[i:i + k]) - t_now))
         for r in range(1, k + 1):
+            out[r] *= phases[r - 1]  # restore the global phase of the shift
             yield i + r - 1, out[r]
         psi = np.ascontiguousarray(out[k])
         t_now = float(t_end)

@@ -253,3 +253,20 @@ def test_missing_sections_named():
     with pytest.raises(ConfigError) as info:
         validate_evolution_config({"evolution": {"t_final": 1, "dt": 1}})
     assert info.value.key == "model"
+
+
+def test_states_equal_dense_matrix_exponential():
+    """Reference: scipy.linalg.expm(−iHt) ψ₀ on the dense physical-subspace H (global phase included)."""
+    import scipy.linalg
+
+    model = {"sites": 6, "hopping": 0.9, "mass": 0.3, "theta": 1.1}
+    p = ModelParams(**model)
+    b = PhysicalBasis(p)
+    H = build_hamiltonian(b).toarray()
+    initial = {"kind": "meson", "sites": [1, 4]}
+    psi0 = prepare_initial_state(b, resolve_initial(initial, p))
+    kept = {}
+    times = [0.0, 0.3, 0.6, 0.9, 1.7]
+    run_evolution(config(model, initial, times=times), callback=lambda k, psi: kept.__setitem__(k, psi.copy()))
+    for k, t in enumerate(times):
+        assert np.allclose(kept[k], scipy.linalg.expm(-1j * H * t) @ psi0, atol=1e-12)
