@@ -268,3 +268,15 @@ def test_command_exit_status_and_message(tmp_path, capsys):
     assert main([str(config), "--output", str(tmp_path / "r.h5"), "--no-progress"]) == 0
     assert "6 runs: 0 already complete, 6 computed, 0 failed" in capsys.readouterr().err
     assert main([str(config), "-o", str(tmp_path / "r.h5"), "--workers", "0"]) == 2
+
+
+def test_ragged_results_load_as_object_arrays(tmp_path):
+    cfg = _cfg('[model]\nsites = 2\n[spectrum]\ncount = 5\n[sweep]\ntask = "spectrum"\n'
+               '[sweep.zip]\n"model.sites" = [2, 4]\n')
+    out = tmp_path / "r.h5"
+    run_sweep(cfg, out, progress=False)
+    data = load_sweep(out)
+    assert data["energies"].dtype == object
+    assert [len(e) for e in data["energies"]] == list(data["levels_returned"])
+    assert list(data["levels_returned"]) == [min(5, d) for d in data["dimension"]]
+    assert "energies" not in to_xarray(out)  # ragged entries stay out of the Dataset
