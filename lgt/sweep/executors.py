@@ -106,7 +106,9 @@ class DaskRunner(Executor):
         elif scheduler is not None:
             self.client = Client(scheduler)
         else:
-            with dask.config.set({"distributed.nanny.pre-spawn-environ": single_thread_environ()}):
+            key = "distributed.nanny.pre-spawn-environ"
+            environ = {**dask.config.get(key, default={}), **single_thread_environ()}
+            with dask.config.set({key: environ}):
                 self._cluster = LocalCluster(n_workers=local_workers, threads_per_worker=1,
                                              processes=True, dashboard_address=None)
             self.client = Client(self._cluster)
