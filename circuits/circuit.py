@@ -17,6 +17,7 @@ from typing import Iterable, NamedTuple, Sequence
 
 import numpy as np
 
+from .fused import FusedRegisterCircuit
 from .gates import Gate
 from .register import Space, from_view, to_view
 
@@ -25,6 +26,8 @@ __all__ = ["Op", "ParametrizedCircuit"]
 #: states with at most this many amplitudes (batch included) take the flat fast path:
 #: per-gate index arrays precomputed once, gather / closed form / scatter per gate
 SMALL_STATE = 8192
+#: small register states are run block-fused (:mod:`circuits.fused`)
+FUSE_REGISTER = True
 
 
 class _Compiled(NamedTuple):
@@ -157,12 +160,26 @@ class ParametrizedCircuit:
         return p
 
     # -- evaluation ---------------------------------------------------------
+    def _fused(self, size: int) -> FusedRegisterCircuit | None:
+        """Block-fused form for register states of ``size`` amplitudes (small only)."""
+        if not (FUSE_REGISTER and self.space.register) or size > SMALL_STATE or not self.ops:
+            return None
+        comp = self._compiled()
+        cached = self.__dict__.get("_fused_cache")
+        if cached is None or cached[0] is not comp:
+            cached = self._fused_cache = (comp, FusedRegisterCircuit([op.gate for op in comp.ops], self.space.shape))
+        return cached[1]
+
     def _plans(self) -> list[object]:
         """Each gate's flat fast-path plan for this space (cached on the gates)."""
         shape = self.space.shape
         return [op.gate._plan(shape) for op in self.ops]
 
-    def _forward(self, angles: Iterable[float], view: np.ndarray) -> np.ndarray:
+    def _forward(self, angles: np.ndarray, view: np.ndarray) -> np.ndarray:
+        fused = self._fused(view.size)
+        if fused is not None:
+            return fused.forward(angles, view.reshape(view.shape[0], -1))[0].reshape(view.shape)
+        angles = angles.tolist()
         if view.size <= SMALL_STATE:
             flat = view.reshape(view.shape[0], -1)
             for op, t, plan in zip(self.ops, angles, self._plans()):
@@ -175,7 +192,7 @@ class ParametrizedCircuit:
     def apply(self, params: Sequence[float] | None, psi0: np.ndarray) -> np.ndarray:
         """``C(params) psi0`` for a flat state ``(dim,)`` or batch ``(B, dim)``."""
         view, batched = to_view(psi0, self.space)
-        return from_view(self._forward(self.angles(params).tolist(), view), batched)
+        return from_view(self._forward(self.angles(params), view), batched)
 
     def overlap_and_gradient(
         self, params: Sequence[float] | None, psi0: np.ndarray, phi: np.ndarray
@@ -188,16 +205,26 @@ class ParametrizedCircuit:
         """
         p = self._params(params)
         comp = self._compiled()
-        angles = self._angles(p).tolist()
+        angles = self._angles(p)
         psi, _ = to_view(psi0, self.space)
         lam, _ = to_view(phi, self.space)
         if lam.shape != psi.shape:
             raise ValueError(f"phi shape {lam.shape} differs from psi0 shape {psi.shape}")
-        psi = self._forward(angles, psi)
+        nb = psi.shape[0]
+        fused = self._fused(psi.size)
+        if fused is not None:
+            # block-fused forward; overlaps from one transition matrix per block
+            flat, steps, kept = fused.forward(angles, psi.reshape(nb, -1), keep=True)
+            f = complex(np.vdot(lam, flat))
+            need = np.zeros(steps.shape[0], dtype=bool)
+            need[fused.block_of[comp.index < p.size]] = True
+            ovs = fused.overlaps(steps, kept, lam.reshape(nb, -1), need)
+            return f, self._scatter_gradient(comp, ovs, p.size)
+        angles = angles.tolist()
+        psi = self._forward(np.asarray(angles), psi)
         f = complex(np.vdot(lam, psi))
         first = comp.first
         # state and costate stacked on the batch axis: one un-apply per gate
-        nb = psi.shape[0]
         work = np.concatenate([psi, lam])
         del psi, lam
         # per-gate overlaps <lam_i|G_i|psi_i>, scattered onto the parameters at the end
@@ -218,9 +245,15 @@ class ParametrizedCircuit:
                     ovs[i] = op.gate.generator_overlap(work[nb:], work[:nb])
                 if i > first:
                     work = op.gate.apply(work, -t)
-        grad = np.bincount(comp.index, weights=(-1j * comp.scale * ovs).real, minlength=p.size + 1)
-        grad = grad + 1j * np.bincount(comp.index, weights=(-1j * comp.scale * ovs).imag, minlength=p.size + 1)
-        return f, grad[: p.size]
+        return f, self._scatter_gradient(comp, ovs, p.size)
+
+    @staticmethod
+    def _scatter_gradient(comp: _Compiled, ovs: np.ndarray, n: int) -> np.ndarray:
+        """``df/dparams = sum_i -i scale_i ovs_i`` over the gates bound to each parameter."""
+        w = -1j * comp.scale * ovs
+        re = np.bincount(comp.index, weights=w.real, minlength=n + 1)
+        im = np.bincount(comp.index, weights=w.imag, minlength=n + 1)
+        return (re + 1j * im)[:n]
 
     def fidelity_and_gradient(
         self, params: Sequence[float] | None, psi0: np.ndarray, phi: np.ndarray
