@@ -12,6 +12,7 @@ from circuits.gates import GeneratorGate, TwoLevelRotation
 from circuits.layers import native_brickwork
 from circuits.random_circuits import random_circuit, random_hermitian, random_state
 from circuits.register import Space, embed_local
+from test_circ_gradient import finite_difference  # central differences, O(h^2)
 
 PATHS = ["fused", "flat", "slices"]
 
@@ -34,16 +35,6 @@ def dense_circuit(c: ParametrizedCircuit, p: np.ndarray) -> np.ndarray:
         g = embed_local(op.gate.generator(), op.gate.qudits, n, d)
         u = sla.expm(-1j * t * g) @ u
     return u
-
-
-def finite_difference(fun, p, h=1e-5):
-    """Central differences, error O(h^2)."""
-    out = []
-    for i in range(p.size):
-        e = np.zeros_like(p)
-        e[i] = h
-        out.append((fun(p + e) - fun(p - e)) / (2 * h))
-    return np.array(out)
 
 
 def circuits_under_test(rng):
