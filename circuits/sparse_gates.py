@@ -25,13 +25,36 @@ __all__ = ["SparseGeneratorGate"]
 
 @dataclass
 class _BlockGroup:
-    """All components of one size ``n``: indices ``(m, n)``, eigenpairs."""
+    """All components of one size ``n``: indices ``(m, n)``, eigenpairs.
+
+    For ``n = 2`` the exponential has a closed form: with ``h = mu 1 + r n.sigma``
+    (``|n| = 1``), ``exp(-i t h) = e^{-i t mu} (cos(t r) 1 - i sin(t r) n.sigma)``, applied
+    on two gathered index arrays without batched small products.
+    """
 
     idx: np.ndarray
     w: np.ndarray  # (m, n)
     v: np.ndarray  # (m, n, n)
 
+    def __post_init__(self) -> None:
+        if self.idx.shape[1] == 2:
+            h = np.einsum("mij,mj,mkj->mik", self.v, self.w, self.v.conj())
+            self.i0, self.i1 = np.ascontiguousarray(self.idx[:, 0]), np.ascontiguousarray(self.idx[:, 1])
+            self.mu = 0.5 * (self.w[:, 0] + self.w[:, 1])
+            self.r = 0.5 * (self.w[:, 1] - self.w[:, 0])  # > 0: coupled pair
+            self.nz = 0.5 * (h[:, 0, 0] - h[:, 1, 1]).real / self.r
+            self.noff = h[:, 0, 1] / self.r
+
     def apply(self, view: np.ndarray, t: float) -> None:
+        if self.idx.shape[1] == 2:
+            ph = np.exp(-1j * t * self.mu)
+            q = (-1j * np.sin(t * self.r)) * ph
+            pc = np.cos(t * self.r) * ph
+            qz = q * self.nz
+            x0, x1 = view[:, self.i0], view[:, self.i1]
+            view[:, self.i0] = (pc + qz) * x0 + (q * self.noff) * x1
+            view[:, self.i1] = (q * self.noff.conj()) * x0 + (pc - qz) * x1
+            return
         x = view[:, self.idx]  # (B, m, n)
         y = np.einsum("mji,bmj->bmi", self.v.conj(), x)
         y *= np.exp(-1j * t * self.w)
