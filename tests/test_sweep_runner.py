@@ -280,3 +280,18 @@ def test_ragged_results_load_as_object_arrays(tmp_path):
     assert [len(e) for e in data["energies"]] == list(data["levels_returned"])
     assert list(data["levels_returned"]) == [min(5, d) for d in data["dimension"]]
     assert "energies" not in to_xarray(out)  # ragged entries stay out of the Dataset
+
+
+def test_xarray_grid_times_zip_layout(tmp_path):
+    cfg = _cfg(BASE + '[sweep.zip]\n"model.hopping" = [0.5, 1.0, 1.5]\n"model.theta" = [0.0, 1.0, 2.0]\n')
+    out = tmp_path / "r.h5"
+    run_sweep(cfg, out, progress=False)
+    ds, data = to_xarray(out), load_sweep(out)
+    assert ds["energies"].shape == (3, 2, 3, 4)
+    assert ds["model.theta"].dims == ("zip",)
+    for k in range(len(data["run_id"])):
+        z = int(np.flatnonzero(ds["model.hopping"].values == data["model.hopping"][k])[0])
+        assert ds["model.theta"].values[z] == data["model.theta"][k]
+        cell = ds["energies"].sel({"model.mass": data["model.mass"][k],
+                                   "model.coupling": data["model.coupling"][k], "zip": z})
+        np.testing.assert_array_equal(cell, data["energies"][k])

@@ -129,8 +129,9 @@ def _coordinate(values: np.ndarray) -> np.ndarray:
 def to_xarray(path: str | Path) -> Any:
     """The sweep as an ``xarray.Dataset``.
 
-    A pure grid sweep with every run complete gets one dimension per grid axis; otherwise the
-    runs lie along a ``run`` dimension with the swept keys as coordinates.
+    A complete sweep gets one dimension per grid axis plus a ``zip`` dimension (zipped keys
+    are coordinates along it); an incomplete one keeps the runs along a ``run`` dimension
+    with the swept keys as coordinates.
     """
     import xarray as xr
 
@@ -146,7 +147,25 @@ def to_xarray(path: str | Path) -> Any:
         dims = ("run",) + tuple(f"{name}_dim{i}" for i in range(1, values.ndim))
         variables[name] = (dims, values)
     ds = xr.Dataset(variables, coords=coords)
-    if info["grid"] and not info["zip"] and n == info["points"]:
-        ds = ds.drop_vars(["run_id", "point"]).set_index(run=list(info["grid"])).unstack("run")
-        ds = ds.transpose(*info["grid"], ...)
+    if n == info["points"] and (info["grid"] or info["zip"]):
+        ds = _gridded(ds, info)
+    return ds
+
+
+def _gridded(ds: Any, info: dict[str, Any]) -> Any:
+    """Reshape the ``run`` dimension into one dimension per grid axis (+ ``zip``)."""
+    index = list(info["grid"])
+    zipped = info["zip"]
+    if zipped:
+        n_zip = len(next(iter(zipped.values())))
+        ds = ds.drop_vars(list(zipped)).assign_coords(zip=("run", ds["point"].values % n_zip))
+        index.append("zip")
+    ds = ds.drop_vars(["run_id", "point"])
+    if len(index) == 1:
+        ds = ds.swap_dims({"run": index[0]})
+    else:
+        ds = ds.set_index(run=index).unstack("run").transpose(*index, ...)
+    if zipped:
+        ds = ds.assign_coords({key: ("zip", _coordinate(_stack(values)))
+                               for key, values in zipped.items()})
     return ds
