@@ -196,7 +196,7 @@ def atomic_h5(path: str | Path, copy_from: str | Path | None = None) -> Iterator
 
     The temporary file lives in the same directory (optionally starting as a byte copy of
     ``copy_from``); on success it is closed, fsynced and moved over ``path`` with
-    :func:`os.replace`, which is atomic on POSIX. On any exception, or if the process is killed,
+    :func:`os.replace`, which is atomic on POSIX, and the directory is fsynced. On any exception, or if the process is killed,
     ``path`` is untouched (a killed process leaves only a ``.*.tmp`` file behind).
     """
     path = Path(path)
@@ -210,6 +210,7 @@ def atomic_h5(path: str | Path, copy_from: str | Path | None = None) -> Iterator
             yield f
         _fsync(tmp)
         os.replace(tmp, path)
+        _fsync(path.parent)  # make the rename itself durable (power loss)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
