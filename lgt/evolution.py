@@ -41,6 +41,10 @@ EVOLUTION_KEYS = ("t_final", "dt", "times", "cut", "observables", "drift_toleran
 DEFAULT_DRIFT_TOLERANCE = 1e-8
 #: Bytes of stored state vectors one ``expm_multiply`` interval call may return.
 CHUNK_BYTES = 256 * 2 ** 20
+#: Below this many non-zeros H is applied on the calling thread only.
+THREADED_NONZEROS = 200_000
+#: Below this dimension observables are measured inline instead of in a background thread.
+BACKGROUND_MEASURE_DIMENSION = 20_000
 #: Resident memory of the interpreter with numpy/scipy loaded (measured ~0.2 GiB).
 BASELINE_BYTES = 200 * 2 ** 20
 
@@ -206,7 +210,8 @@ class SchrodingerOperator(LinearOperator):
             shift = 0.5 * float(diag.max() + diag.min()) if diag.size else 0.0
         self.shift = shift
         if _blocks is None:
-            threads = threads or min(os.cpu_count() or 1, 4)
+            if threads is None:  # thread dispatch costs more than it saves on small matrices
+                threads = 1 if H.nnz < THREADED_NONZEROS else min(os.cpu_count() or 1, 4)
             edges = np.linspace(0, H.shape[0], threads + 1).astype(int)
             _blocks = [H[a:b] for a, b in zip(edges[:-1], edges[1:]) if b > a]
         self.blocks = _blocks
@@ -340,6 +345,10 @@ def run_evolution(config: Mapping[str, Any], progress: bool = False,
         for index, psi in propagate(op, psi0, times):
             if callback is not None:
                 callback(index, psi)
+            if basis.dimension < BACKGROUND_MEASURE_DIMENSION:
+                results.append(observer.measure(psi))
+                bar.update(1)
+                continue
             pending.append(measurer.submit(observer.measure, psi))
             drain(max_pending)
         drain(0)
