@@ -29,7 +29,8 @@ import scipy.sparse as sp
 from scipy.sparse.linalg import LinearOperator, expm_multiply
 
 from lgt.basis import PhysicalBasis, staggering
-from lgt.config import as_float, as_int, check_keys
+from lgt.chebyshev import ChebyshevPropagator, gershgorin_interval
+from lgt.config import as_choice, as_float, as_int, check_keys
 from lgt.errors import ConfigError, ResourceError
 from lgt.hamiltonian import build_hamiltonian
 from lgt.model import ModelParams
@@ -37,7 +38,10 @@ from lgt.observables import OBSERVABLES, Observer, single_threaded_blas
 from lgt.results import RunResult, TimeSeries
 from lgt.states import prepare_initial_state, resolve_initial
 
-EVOLUTION_KEYS = ("t_final", "dt", "times", "cut", "observables", "drift_tolerance", "memory_limit_gb")
+EVOLUTION_KEYS = ("t_final", "dt", "times", "cut", "observables", "drift_tolerance", "memory_limit_gb",
+                  "method")
+#: Propagators: Chebyshev series over blocks of stored times (default), or scipy's expm_multiply.
+METHODS = ("chebyshev", "expm_multiply")
 DEFAULT_DRIFT_TOLERANCE = 1e-8
 #: Bytes of stored state vectors one ``expm_multiply`` interval call may return.
 CHUNK_BYTES = 256 * 2 ** 20
@@ -178,9 +182,10 @@ def validate_evolution_config(config: Mapping[str, Any]) -> dict[str, Any]:
                               f"unknown observable; known: {', '.join(OBSERVABLES)}")
     tol = as_float(section.get("drift_tolerance", DEFAULT_DRIFT_TOLERANCE),
                    "evolution.drift_tolerance", positive=True)
+    method = as_choice(section.get("method", METHODS[0]), "evolution.method", METHODS)
     resolved_ev: dict[str, Any] = {"times": [float(t) for t in times], "cut": cut,
                                    "observables": list(dict.fromkeys(observables)),
-                                   "drift_tolerance": tol}
+                                   "drift_tolerance": tol, "method": method}
     limit = None
     if "memory_limit_gb" in section:
         gb = as_float(section["memory_limit_gb"], "evolution.memory_limit_gb", positive=True)
@@ -262,12 +267,17 @@ def _uniform(times: np.ndarray) -> bool:
 
 
 def propagate(op: SchrodingerOperator, psi0: np.ndarray, times: np.ndarray,
-              chunk_bytes: int = CHUNK_BYTES) -> Iterator[tuple[int, np.ndarray]]:
+              chunk_bytes: int = CHUNK_BYTES, method: str = "chebyshev") -> Iterator[tuple[int, np.ndarray]]:
     """Yield (index, ψ(times[index])) for every stored time, ψ(0) = psi0.
 
-    Uniform grids go through the start/stop/num form of ``expm_multiply`` in chunks holding at
-    most ``chunk_bytes`` of vectors; otherwise each interval is one call.
+    ``method="chebyshev"``: one Chebyshev recurrence per block of stored times (blocks hold at
+    most ``chunk_bytes`` of vectors; see :mod:`lgt.chebyshev`). ``method="expm_multiply"``:
+    uniform grids go through the start/stop/num form of ``expm_multiply`` in such chunks,
+    other grids one call per interval.
     """
+    if method == "chebyshev":
+        yield from _propagate_chebyshev(op, psi0, times, chunk_bytes)
+        return
     psi = np.ascontiguousarray(psi0, dtype=np.complex128)
     t_now = 0.0
     i = 0
@@ -290,6 +300,29 @@ def propagate(op: SchrodingerOperator, psi0: np.ndarray, times: np.ndarray,
             yield i + r - 1, out[r]
         psi = np.ascontiguousarray(out[k])
         t_now = float(t_end)
+        i += k
+        del out
+
+
+def _propagate_chebyshev(op: SchrodingerOperator, psi0: np.ndarray, times: np.ndarray,
+                         chunk_bytes: int) -> Iterator[tuple[int, np.ndarray]]:
+    """:func:`propagate` by Chebyshev blocks (H products threaded by ``op``)."""
+    psi = np.ascontiguousarray(psi0, dtype=np.complex128)
+    per_chunk = max(1, int(chunk_bytes // (16 * max(psi.size, 1))) - 1)
+    prop = ChebyshevPropagator(op.real_apply, gershgorin_interval(op.matrix), 1.0)
+    t_now, i = 0.0, 0
+    while i < times.size:
+        if times[i] == t_now:
+            yield i, psi
+            i += 1
+            continue
+        k = min(per_chunk, times.size - i)
+        with single_threaded_blas():  # small dense algebra; H products are threaded by ``op``
+            out = prop.block(psi, np.asarray(times[i:i + k]) - t_now)
+        for r in range(k):
+            yield i + r, out[r]
+        psi = np.ascontiguousarray(out[k - 1])
+        t_now = float(times[i + k - 1])
         i += k
         del out
 
@@ -342,7 +375,7 @@ def run_evolution(config: Mapping[str, Any], progress: bool = False,
 
     measurer = ThreadPoolExecutor(1)
     try:
-        for index, psi in propagate(op, psi0, times):
+        for index, psi in propagate(op, psi0, times, method=ev.get("method", METHODS[0])):
             if callback is not None:
                 callback(index, psi)
             if basis.dimension < BACKGROUND_MEASURE_DIMENSION:
