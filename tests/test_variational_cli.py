@@ -30,6 +30,7 @@ t_final = 1.0
 tolerance = 0.001
 max_layers = 4
 compile = false
+compare_families = false
 """
 
 

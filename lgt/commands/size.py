@@ -24,16 +24,19 @@ def _run(args: argparse.Namespace) -> int:
         print(json.dumps(summary))
         return 0
     v = resolved["variational"]
-    print(f"depth sizing: {v['family']} layers, tolerance {v['tolerance']} on {v['criterion']} over [0, {v['t_final']}]")
-    print(f"{'D':>3} {'params':>7} {'max 1-F':>10} {'leakage':>9} {'2q gates':>9} {'1q gates':>9} "
-          f"{'other':>6} {'time us':>9} {'F noise':>8} {'F total':>8}")
-    for r in summary["table"]:
-        mark = " <" if r["layers"] == summary["layers"] else ""
-        print(f"{r['layers']:>3} {r['parameters']:>7} {r['max_infidelity']:>10.2e} {r['max_leakage']:>9.1e} "
-              f"{r['two_qudit_gates']:>9} {r['single_qudit_gates']:>9} {r['other_gates']:>6} {r['duration_us']:>9.0f} "
-              f"{r['noise_fidelity']:>8.4f} {r['total_fidelity']:>8.4f}{mark}")
+    print(f"depth sizing: tolerance {v['tolerance']} on {v['criterion']} over [0, {v['t_final']}]")
+    for family, part in summary["families"].items():
+        print(f"\n{family} layers (native gates per circuit; '<' marks the least depth meeting the tolerance)")
+        print(f"{'D':>3} {'params':>7} {'max 1-F':>10} {'leakage':>9} {'2q gates':>9} {'1q gates':>9} "
+              f"{'other':>6} {'time us':>9} {'F noise':>8} {'F total':>8}")
+        for r in part["table"]:
+            mark = " <" if r["layers"] == part["layers"] else ""
+            print(f"{r['layers']:>3} {r['parameters']:>7} {r['max_infidelity']:>10.2e} {r['max_leakage']:>9.1e} "
+                  f"{r['two_qudit_gates']:>9} {r['single_qudit_gates']:>9} {r['other_gates']:>6} "
+                  f"{r['duration_us']:>9.0f} {r['noise_fidelity']:>8.4f} {r['total_fidelity']:>8.4f}{mark}")
+    print()
     chosen = summary["layers"]
-    print(f"least depth meeting the tolerance: {chosen if chosen is not None else 'none up to max_layers'}")
+    print(f"least depth of {summary['family']} layers meeting the tolerance: {chosen if chosen is not None else 'none up to max_layers'}")
     print(f"best depth under the gate-error budget: {summary['budget']['best_layers_under_noise']}")
     for t in summary["trotter"]:
         steps = t["steps"] if t["steps"] is not None else "not reached"

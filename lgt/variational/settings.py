@@ -19,12 +19,16 @@ ENTANGLERS = ("diagonal", "ms")
 VARIATIONAL_KEYS = ("family", "layers", "angles", "dt", "t_final", "tolerance", "step_tolerance",
                     "maxiter", "restarts", "mode", "max_layers", "criterion", "observable_tolerance",
                     "entangler", "entangler_levels", "trotter_orders", "trotter_max_steps",
-                    "compile", "compile_fidelity", "shots_error", "seed", "hardware_profile")
+                    "compile", "compile_fidelity", "shots_error", "seed", "hardware_profile",
+                    "compare_families")
 
 
 @dataclass(frozen=True)
 class VariationalSettings:
     """Resolved ``[variational]`` settings (times in lattice units).
+
+    ``compare_families``: ``fluxline size`` also sizes the other layer family (when its space
+    fits), so that both appear in native gates.
 
     ``step_tolerance`` defaults to tolerance / n_steps²: by the triangle inequality for the
     Bures angle, n steps of infidelity ε each keep 1 − F(T) ≤ n² ε even when the errors add
@@ -54,6 +58,7 @@ class VariationalSettings:
     shots_error: float = 0.01
     seed: int = 0
     hardware_profile: str | None = None
+    compare_families: bool = True
 
     @property
     def n_steps(self) -> int:
@@ -124,10 +129,11 @@ def resolve_variational(config: Mapping[str, Any], levels: int) -> VariationalSe
     kw["trotter_orders"] = tuple(sorted(set(orders)))
     kw["trotter_max_steps"] = as_int(section.get("trotter_max_steps", d.trotter_max_steps),
                                      p + "trotter_max_steps", minimum=1)
-    comp = section.get("compile", d.compile)
-    if not isinstance(comp, bool):
-        raise ConfigError(p + "compile", comp, "must be true or false")
-    kw["compile"] = comp
+    for name in ("compile", "compare_families"):
+        flag = section.get(name, getattr(d, name))
+        if not isinstance(flag, bool):
+            raise ConfigError(p + name, flag, "must be true or false")
+        kw[name] = flag
     cf = as_float(section.get("compile_fidelity", d.compile_fidelity), p + "compile_fidelity", positive=True)
     if cf >= 1:
         raise ConfigError(p + "compile_fidelity", cf, "must be below 1")

@@ -26,7 +26,11 @@ CRITERION_OBSERVABLES = ("electric_field", "particle_density")
 
 @dataclass
 class DepthRow:
-    """One depth D of the sizing table (fidelities over the whole window [0, T])."""
+    """One depth D of the sizing table (fidelities over the whole window [0, T]).
+
+    With the fidelity criterion a depth's fit stops as soon as it exceeds the tolerance;
+    ``reached_time`` is then where it stopped (< T) and ``final_fidelity`` is taken there.
+    """
 
     layers: int
     parameters: int
@@ -43,6 +47,7 @@ class DepthRow:
     total_fidelity: float
     fit_seconds: float
     meets_tolerance: bool
+    reached_time: float
 
 
 @dataclass
@@ -75,12 +80,14 @@ class SizingResult:
 
 def evaluate_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSettings, layers: int,
                    profile: HardwareProfile, term_costs: dict[str, TermCost],
-                   progress: Callable[[int], None] | None = None) -> tuple[DepthRow, VariationalTrajectory]:
-    """Fit D = ``layers`` over the window and summarise it."""
+                   progress: Callable[[int], None] | None = None,
+                   abort: float | None = None) -> tuple[DepthRow, VariationalTrajectory]:
+    """Fit D = ``layers`` over the window and summarise it (``abort``: see :func:`fit_trajectory`)."""
     ansatz = make_ansatz(basis, settings.family, layers, settings.angles, settings.native_spec())
     t0 = time.perf_counter()
     traj = fit_trajectory(ansatz, psi0, settings.dt, settings.n_steps, settings.step_tolerance,
-                          settings.maxiter, settings.mode, settings.restarts, settings.seed, progress)
+                          settings.maxiter, settings.mode, settings.restarts, settings.seed, progress,
+                          abort_infidelity=abort)
     seconds = time.perf_counter() - t0
     comparison = compare_to_exact(make_observer(traj, basis), traj)
     obs_err = max(comparison[name]["max_error"] for name in CRITERION_OBSERVABLES)
@@ -92,7 +99,7 @@ def evaluate_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: Variational
     row = DepthRow(layers, ansatz.n_params, traj.max_infidelity, float(traj.fidelity[-1]),
                    float(traj.step_infidelity.sum()), float(traj.leakage.max()), obs_err,
                    cost.single_qudit, cost.two_qudit, cost.other, cost.duration_us, cost.fidelity,
-                   float(np.min(traj.fidelity)) * cost.fidelity, seconds, bool(meets))
+                   float(np.min(traj.fidelity)) * cost.fidelity, seconds, bool(meets), float(traj.times[-1]))
     return row, traj
 
 
@@ -122,27 +129,53 @@ def trotter_rows(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSe
     return rows
 
 
+def abort_thresholds(basis: PhysicalBasis, settings: VariationalSettings, profile: HardwareProfile,
+                     term_costs: dict[str, TermCost]) -> dict[int, float | None]:
+    """Infidelity above which the fit of depth D can stop: it then neither meets the tolerance
+    nor can maximise the predicted total fidelity F_alg(D) F_noise(D).
+
+    D can only beat a depth C ≤ max_layers meeting the tolerance if
+    F_alg(D) > (1 − tol) F_noise(C) / F_noise(D) ≥ (1 − tol) F_noise(max_layers) / F_noise(D)
+    (F_noise falls with depth), so D stops once 1 − F(t) exceeds
+    max(tol, 1 − (1 − tol) F_noise(max_layers) / F_noise(D)). Only with the fidelity criterion.
+    """
+    if settings.criterion != "fidelity":
+        return {D: None for D in range(1, settings.max_layers + 1)}
+    noise = {D: ansatz_cost(make_ansatz(basis, settings.family, D, settings.angles, settings.native_spec()),
+                            profile, term_costs).fidelity for D in range(1, settings.max_layers + 1)}
+    deepest = noise[settings.max_layers]
+    tol = settings.tolerance
+    return {D: max(tol, 1.0 - (1.0 - tol) * deepest / noise[D]) if noise[D] > 0 else tol for D in noise}
+
+
 def size_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSettings,
                profile: HardwareProfile, term_costs: dict[str, TermCost],
-               log: Callable[[str], None] | None = None) -> SizingResult:
-    """Scan D = 1 … max_layers until the tolerance is met (plus one deeper for the budget)."""
+               log: Callable[[str], None] | None = None, baselines: bool = True) -> SizingResult:
+    """Scan D = 1 … max_layers until the tolerance is met (plus one deeper for the budget).
+
+    ``baselines=False`` skips the Trotter baseline and the shot counts (used when a second
+    layer family is sized for comparison).
+    """
     from lgt.variational.shots import shots_needed
 
     rows: list[DepthRow] = []
     trajectories: dict[int, VariationalTrajectory] = {}
     chosen = None
+    thresholds = abort_thresholds(basis, settings, profile, term_costs)
     for layers in range(1, settings.max_layers + 1):
-        row, traj = evaluate_depth(basis, psi0, settings, layers, profile, term_costs)
+        row, traj = evaluate_depth(basis, psi0, settings, layers, profile, term_costs, abort=thresholds[layers])
         rows.append(row)
         trajectories[layers] = traj
         if log:
-            log(f"D = {layers}: max infidelity {row.max_infidelity:.2e}, {row.two_qudit_gates} two-qudit gates, "
+            log(f"{settings.family} D = {layers}: max infidelity {row.max_infidelity:.2e}, {row.two_qudit_gates} two-qudit gates, "
                 f"{row.fit_seconds:.1f} s")
         if chosen is not None:
             break  # one layer past the chosen depth, to show the budget trend
         if row.meets_tolerance:
             chosen = layers
     best = max(rows, key=lambda r: r.total_fidelity).layers if rows else None
+    if not baselines:
+        return SizingResult(rows, chosen, best, [], {}, trajectories)
     trotter = trotter_rows(basis, psi0, settings, term_costs)
     reference = trajectories[chosen if chosen is not None else rows[-1].layers]
     shots = shots_needed(basis, reference.exact_states, settings.shots_error)

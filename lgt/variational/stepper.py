@@ -72,7 +72,8 @@ def exact_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: 
 
 def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: int,
                    step_tolerance: float, maxiter: int = 300, mode: str = "dynamics",
-                   restarts: int = 1, seed: int = 0, progress=None) -> VariationalTrajectory:
+                   restarts: int = 1, seed: int = 0, progress=None,
+                   abort_infidelity: float | None = None) -> VariationalTrajectory:
     """Fit the ansatz step by step from the physical initial state ``psi0``.
 
     Parameters
@@ -85,6 +86,8 @@ def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: in
         parameters plus small random angles (escapes the saddle points of the landscape, e.g.
         the identity point of native brickwork layers); the best fit is kept.
     progress : optional callable ``progress(k)`` after each step.
+    abort_infidelity : stop early once 1 − F(t_k) against the exact state exceeds this (the
+        window can no longer meet that tolerance); the trajectory then ends at that step.
     """
     if mode not in MODES:
         raise ValueError(f"mode must be one of {MODES}, got {mode!r}")
@@ -136,8 +139,11 @@ def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: in
         wall[k + 1] = time.perf_counter() - t0
         if progress is not None:
             progress(k + 1)
-    return VariationalTrajectory(np.arange(T) * dt, params, step_inf, fidelity, leakage, iters, nfev,
-                                 wall, states, exact)
+        if abort_infidelity is not None and 1.0 - fidelity[k + 1] > abort_infidelity:
+            T = k + 2
+            break
+    return VariationalTrajectory(np.arange(T) * dt, params[:T], step_inf[:T], fidelity[:T], leakage[:T],
+                                 iters[:T], nfev[:T], wall[:T], states[:T], exact[:T])
 
 
 def _better_start(circuit, v0: np.ndarray, target: np.ndarray, candidates: list[np.ndarray]) -> np.ndarray:

@@ -28,6 +28,8 @@ from lgt.variational.settings import resolve_variational
 from lgt.variational.stepper import VariationalTrajectory, fit_trajectory
 
 SECTIONS = ("model", "initial", "evolution", "variational", "output")
+#: Largest register (d^K) on which hardware layers are fitted.
+MAX_HARDWARE_REGISTER = 2_000_000
 
 
 def validate_variational_config(config: Mapping[str, Any]) -> dict[str, Any]:
@@ -36,7 +38,7 @@ def validate_variational_config(config: Mapping[str, Any]) -> dict[str, Any]:
     params = ModelParams.from_dict(config.get("model", {}))
     initial = resolve_initial(config.get("initial"), params)
     settings = resolve_variational(config, params.levels)
-    if settings.family == "hardware" and params.levels ** params.n_links > 2_000_000:
+    if settings.family == "hardware" and params.levels ** params.n_links > MAX_HARDWARE_REGISTER:
         from lgt.errors import ConfigError
 
         raise ConfigError("variational.family", "hardware",
@@ -179,6 +181,12 @@ def run_size(resolved: Mapping[str, Any], log=None) -> RunResult:
                              compile=settings.compile, seed=settings.seed)
     t1 = time.perf_counter()
     result = size_depth(basis, psi0, settings, profile, costs, log)
+    other = None
+    other_family = "hardware" if settings.family == "symmetric" else "symmetric"
+    if settings.compare_families and (other_family == "symmetric" or basis.register_dimension <= MAX_HARDWARE_REGISTER):
+        from dataclasses import replace
+
+        other = size_depth(basis, psi0, replace(settings, family=other_family), profile, costs, log, baselines=False)
     t2 = time.perf_counter()
     table = result.table()
     arrays = {f"table_{key}": np.array([row[key] for row in table], dtype=float) for key in table[0]}
@@ -190,17 +198,24 @@ def run_size(resolved: Mapping[str, Any], log=None) -> RunResult:
         "layers": -1 if result.chosen is None else result.chosen,
         "best_layers_under_noise": -1 if result.best_under_noise is None else result.best_under_noise,
         "family": settings.family, "hardware_profile": profile.name,
-        "summary_json": json.dumps(size_summary(result, costs)),
+        "summary_json": json.dumps(size_summary(result, costs, settings.family, other_family, other)),
     }
     return RunResult("size", dict(resolved), series, arrays, attributes,
                      timings={"compile": t1 - t0, "size": t2 - t1})
 
 
-def size_summary(result, costs) -> dict[str, Any]:
-    """JSON-ready summary: chosen depth, table, Trotter baseline, budget, shots, term costs."""
+def size_summary(result, costs, family: str, other_family: str, other=None) -> dict[str, Any]:
+    """JSON-ready summary: chosen depth, table, Trotter baseline, budget, shots, term costs,
+    and (``other``) the comparison family's table."""
     from dataclasses import asdict
 
+    families = {family: {"layers": result.chosen, "table": result.table()}}
+    if other is not None:
+        families[other_family] = {"layers": other.chosen, "table": other.table(),
+                                  "best_layers_under_noise": other.best_under_noise}
     return {
+        "family": family,
+        "families": families,
         "layers": result.chosen,
         "table": result.table(),
         "trotter": [asdict(t) for t in result.trotter],
