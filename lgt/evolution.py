@@ -196,6 +196,19 @@ def validate_evolution_config(config: Mapping[str, Any]) -> dict[str, Any]:
 
 
 # ---------------------------------------------------------------------- propagation
+def product_threads() -> int:
+    """Threads for sparse products: OMP_NUM_THREADS if set (sweep workers pin it to 1), else
+    the CPUs this process may use, at most 4."""
+    env = os.environ.get("OMP_NUM_THREADS", "")
+    if env.isdigit() and int(env) > 0:
+        return int(env)
+    try:
+        available = len(os.sched_getaffinity(0))
+    except AttributeError:  # pragma: no cover - not on Linux
+        available = os.cpu_count() or 1
+    return max(1, min(available, 4))
+
+
 class SchrodingerOperator(LinearOperator):
     """A = sign · (−i) (H − shift) for real symmetric sparse H, applied blockwise by threads.
 
@@ -216,7 +229,7 @@ class SchrodingerOperator(LinearOperator):
         self.shift = shift
         if _blocks is None:
             if threads is None:  # thread dispatch costs more than it saves on small matrices
-                threads = 1 if H.nnz < THREADED_NONZEROS else min(os.cpu_count() or 1, 4)
+                threads = 1 if H.nnz < THREADED_NONZEROS else product_threads()
             edges = np.linspace(0, H.shape[0], threads + 1).astype(int)
             _blocks = [H[a:b] for a, b in zip(edges[:-1], edges[1:]) if b > a]
         self.blocks = _blocks
