@@ -60,14 +60,48 @@ def _save(fig: Figure, path: Path) -> Path:
     return path
 
 
+def split_fit(result: RunResult) -> tuple[RunResult, RunResult]:
+    """(exact reference, variational) runs from a ``fit`` result, whose series hold each
+    compared observable twice: ``name`` (variational) and ``exact_name``."""
+    exact = {k[len("exact_"):]: v for k, v in result.series.items() if k.startswith("exact_")}
+    fitted = {k: v for k, v in result.series.items() if f"exact_{k}" in result.series}
+    return (RunResult("evolve", result.parameters, exact),
+            RunResult("fit", result.parameters, fitted, attributes=result.attributes))
+
+
+#: Fit diagnostics plotted for ``fit`` results (log scale).
+FIT_PLOTS = {"fidelity": "infidelity 1 − F(t) vs exact", "leakage": "leakage out of the physical subspace",
+             "step_infidelity": "step infidelity"}
+
+
 def plot_run(result: RunResult, outdir: str | Path, overlay: RunResult | None = None,
              prefix: str = "") -> list[Path]:
     """Write PNGs for the observables present in ``result``; return the paths written.
 
     Files: ``{prefix}electric_field_map.png`` (and ``{prefix}electric_field_map_overlay.png``
     when ``overlay`` has fields), then ``{prefix}<name>.png`` for each of :data:`LINE_PLOTS`.
+    A ``fit`` result is drawn as its exact reference with the fitted curves dashed on top,
+    plus ``{prefix}fit_diagnostics.png`` (infidelity, step infidelity, leakage vs time).
     """
-    outdir = Path(outdir)
+    if result.task == "fit" and overlay is None:
+        exact, fitted = split_fit(result)
+        written = _plot_pair(exact, fitted, Path(outdir), prefix, ("exact", "variational"))
+        fig = Figure(figsize=(6, 3.5))
+        ax = fig.add_subplot()
+        for name, label in FIT_PLOTS.items():
+            if name in result.series:
+                s = result.series[name]
+                y = 1.0 - np.asarray(s.values) if name == "fidelity" else np.asarray(s.values)
+                ax.semilogy(s.times[1:], np.maximum(y[1:], 1e-16), label=label)
+        ax.set_xlabel("time t (lattice units)")
+        ax.legend(fontsize=8)
+        written.append(_save(fig, Path(outdir) / f"{prefix}fit_diagnostics.png"))
+        return written
+    return _plot_pair(result, overlay, Path(outdir), prefix, ("exact", "overlay"))
+
+
+def _plot_pair(result: RunResult, overlay: RunResult | None, outdir: Path, prefix: str,
+               labels: Sequence[str]) -> list[Path]:
     outdir.mkdir(parents=True, exist_ok=True)
     written = []
     for run, suffix in ((result, ""), (overlay, "_overlay")):
@@ -78,9 +112,9 @@ def plot_run(result: RunResult, outdir: str | Path, overlay: RunResult | None = 
     for name in LINE_PLOTS:
         if name in result.series:
             fig = Figure(figsize=(6, 3.5))
-            draw_series(fig.add_subplot(), result, name, overlay)
+            draw_series(fig.add_subplot(), result, name, overlay, labels)
             written.append(_save(fig, outdir / f"{prefix}{name}.png"))
     return written
 
 
-__all__ = ["plot_run", "draw_field_map", "draw_series", "LINE_PLOTS"]
+__all__ = ["plot_run", "split_fit", "draw_field_map", "draw_series", "LINE_PLOTS", "FIT_PLOTS"]
