@@ -17,6 +17,7 @@ from typing import Callable
 import numpy as np
 from scipy.optimize import minimize
 
+from .blas_threads import single_threaded_blas
 from .circuit import ParametrizedCircuit
 from .layers import NativeLayerSpec, native_brickwork
 
@@ -70,10 +71,11 @@ def fit_to_target(
         if stop_infidelity is not None and intermediate_result.fun <= stop_infidelity:
             raise StopIteration
 
-    res = minimize(
-        loss, p0, jac=True, method="L-BFGS-B", callback=reached,
-        options={"maxiter": maxiter, "ftol": tol, "gtol": tol},
-    )
+    with single_threaded_blas():  # the optimiser's small dense updates (see blas_threads)
+        res = minimize(
+            loss, p0, jac=True, method="L-BFGS-B", callback=reached,
+            options={"maxiter": maxiter, "ftol": tol, "gtol": tol},
+        )
     return FitResult(
         np.asarray(res.x),
         float(1.0 - res.fun),

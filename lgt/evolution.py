@@ -34,7 +34,8 @@ from lgt.config import as_choice, as_float, as_int, check_keys
 from lgt.errors import ConfigError, ResourceError
 from lgt.hamiltonian import build_hamiltonian
 from lgt.model import ModelParams
-from lgt.observables import OBSERVABLES, Observer, single_threaded_blas
+from circuits.blas_threads import single_threaded_blas
+from lgt.observables import OBSERVABLES, Observer
 from lgt.results import RunResult, TimeSeries
 from lgt.states import prepare_initial_state, resolve_initial
 

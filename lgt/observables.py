@@ -18,16 +18,14 @@ Energies are in lattice units; every other quantity is dimensionless.
 
 from __future__ import annotations
 
-import ctypes
-from contextlib import contextmanager
 from dataclasses import dataclass
-from functools import lru_cache
 from typing import Callable, Iterable, Iterator
 
 import numpy as np
 import scipy.linalg as sla
 import scipy.sparse as sp
 
+from circuits.blas_threads import single_threaded_blas
 from lgt.basis import PhysicalBasis, staggering
 from lgt.errors import ConfigError
 
@@ -57,43 +55,6 @@ def real_matvec(H: sp.spmatrix, psi: np.ndarray) -> np.ndarray:
     psi = np.ascontiguousarray(psi, dtype=np.complex128)
     out = H @ psi.view(np.float64).reshape(-1, 2)
     return np.ascontiguousarray(out).view(np.complex128).ravel()
-
-
-@lru_cache(maxsize=1)
-def _openblas_libraries() -> tuple:
-    """OpenBLAS copies loaded in this process that offer per-thread thread counts (Linux only)."""
-    libs = []
-    try:
-        with open("/proc/self/maps") as fh:
-            paths = {line.split()[-1] for line in fh if "openblas" in line.lower() and ".so" in line}
-    except OSError:
-        return ()
-    for path in sorted(paths):
-        try:
-            lib = ctypes.CDLL(path)
-            fn = lib.openblas_set_num_threads_local
-        except (OSError, AttributeError):
-            continue
-        fn.argtypes, fn.restype = [ctypes.c_int], ctypes.c_int
-        libs.append(fn)
-    return tuple(libs)
-
-
-@contextmanager
-def single_threaded_blas() -> Iterator[None]:
-    """Run BLAS/LAPACK on one thread in this thread (restored afterwards).
-
-    The reductions here are many small dense products and eigensolves, for which OpenBLAS
-    threading costs far more than it gains, above all on a busy machine (measured 6 ms vs
-    40–600 ms for a 244 × 244 Hermitian eigensolve on 2 shared cores).
-    """
-    setters = _openblas_libraries()
-    previous = [fn(1) for fn in setters]
-    try:
-        yield
-    finally:
-        for fn, n in zip(setters, previous):
-            fn(n)
 
 
 # ---------------------------------------------------------------------- one-body observables

@@ -130,6 +130,14 @@ def compile_exponential(generator: np.ndarray, angle: float, n_qudits: int, d: i
     return int(entry["layers"]), np.asarray(entry["params"]), float(entry["fidelity"])
 
 
+def uncompiled_hoppings(params: ModelParams, spec: NativeLayerSpec, fidelity: float = 0.999) -> list[int]:
+    """Links whose hopping exponential is in neither the shipped nor the user's cache (so
+    :func:`model_term_costs` with ``compile=True`` would compile them now)."""
+    cache = _load_cache()
+    return [t.index for t in local_terms(params) if t.kind == "hopping"
+            and _key(t.matrix / abs(params.hopping), TEMPLATE_ANGLE, params.levels, spec, fidelity) not in cache]
+
+
 def _native_term_cost(label: str, gate, profile: HardwareProfile) -> TermCost:
     spec = profile.spec(gate)
     return TermCost(label, {hardware_key(gate): 1}, spec.fidelity, spec.duration_us)

@@ -190,6 +190,8 @@ def run_size(resolved: Mapping[str, Any], log=None) -> RunResult:
     t2 = time.perf_counter()
     table = result.table()
     arrays = {f"table_{key}": np.array([row[key] for row in table], dtype=float) for key in table[0]}
+    if result.chosen is not None:  # the chosen depth's fitted angles, ready for export_circuits
+        arrays["parameters"] = result.trajectories[result.chosen].params
     series = {}
     for layers, traj in result.trajectories.items():
         series[f"fidelity_D{layers}"] = TimeSeries(traj.times, traj.fidelity)
