@@ -22,6 +22,9 @@ from .gates import Gate
 
 __all__ = ["SparseGeneratorGate"]
 
+#: Spaces up to this dimension apply non-diagonal generators through a dense eigendecomposition.
+DENSE_DIM = 160
+
 
 @dataclass
 class _BlockGroup:
@@ -104,11 +107,15 @@ class SparseGeneratorGate(Gate):
         Components larger than this use ``expm_multiply`` instead of ``eigh``.
     label
         Free-text name, kept for accounting and export.
+    dense_below
+        Spaces of at most this dimension use one dense eigendecomposition of ``G`` instead of
+        the block structure (default :data:`DENSE_DIM`; 0 always uses the blocks).
     """
 
     kind = "generator"
 
-    def __init__(self, g, max_block: int = 64, label: str = "", atol: float = 1e-10) -> None:
+    def __init__(self, g, max_block: int = 64, label: str = "", atol: float = 1e-10,
+                 dense_below: int | None = None) -> None:
         mat = sp.csr_matrix(g, dtype=np.complex128)
         mat.eliminate_zeros()
         if mat.shape[0] != mat.shape[1]:
@@ -122,6 +129,12 @@ class SparseGeneratorGate(Gate):
         self.is_diagonal = off.nnz == 0
         if self.is_diagonal:
             self.h = mat.diagonal().real.copy()
+            return
+        self.dense = None
+        if self.dim <= (DENSE_DIM if dense_below is None else dense_below):  # tiny spaces: two small matrix products beat gather/scatter
+            dense = mat.toarray()
+            w, v = np.linalg.eigh(dense)
+            self.dense = (dense, w, np.ascontiguousarray(v), np.ascontiguousarray(v.conj()))
             return
         pattern = sp.coo_matrix((np.ones(off.nnz), (off.row, off.col)), shape=off.shape)
         _, labels = connected_components(pattern, directed=False)
@@ -146,6 +159,12 @@ class SparseGeneratorGate(Gate):
         if self.is_diagonal:
             view *= self._phases(t)
             return view
+        if self.dense is not None:
+            _, w, v, v_conj = self.dense
+            coeff = view @ v_conj  # rows: V† ψ_b
+            coeff *= np.exp(-1j * t * w)
+            view[...] = coeff @ v.T
+            return view
         if self.phase_idx.size:
             view[:, self.phase_idx] *= np.exp(-1j * t * self.phase_h)
         for grp in self.groups:
@@ -158,4 +177,6 @@ class SparseGeneratorGate(Gate):
     def generator_overlap(self, lam: np.ndarray, psi: np.ndarray) -> complex:
         if self.is_diagonal:
             return complex(np.vdot(lam, psi * self.h))
+        if self.dense is not None:
+            return complex(np.vdot(lam, psi @ self.dense[0].T))
         return complex(np.vdot(lam, (self.g @ psi.T).T))

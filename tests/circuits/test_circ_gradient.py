@@ -51,12 +51,16 @@ def test_sparse_gate_matches_expm():
     # reference: scipy.linalg.expm of the dense generator
     rng = np.random.default_rng(5)
     g = random_sparse_generator(rng, 60, 12, 10, big=9)
-    gate = SparseGeneratorGate(g, max_block=4)
-    assert gate.large and gate.groups
     psi = random_state(rng, (2, 60))
-    c = ParametrizedCircuit(Space.subspace(60))
-    c.append(gate, 0)
-    np.testing.assert_allclose(c.apply([0.9], psi), psi @ sla.expm(-0.9j * g.toarray()).T, atol=1e-10)
+    for dense_below in (0, None):  # block route (with expm_multiply fallback), dense route
+        gate = SparseGeneratorGate(g, max_block=4, dense_below=dense_below)
+        if dense_below == 0:
+            assert gate.large and gate.groups
+        else:
+            assert gate.dense is not None
+        c = ParametrizedCircuit(Space.subspace(60))
+        c.append(gate, 0)
+        np.testing.assert_allclose(c.apply([0.9], psi), psi @ sla.expm(-0.9j * g.toarray()).T, atol=1e-10)
     diag = SparseGeneratorGate(sp.diags(rng.normal(size=60)))
     assert diag.is_diagonal
 
@@ -66,10 +70,11 @@ def test_subspace_gradients_shared_parameters():
     dim = 50
     c = ParametrizedCircuit(Space.subspace(dim), 4)
     gates = [
+        SparseGeneratorGate(random_sparse_generator(rng, dim, 10, 8), dense_below=0),
+        SparseGeneratorGate(random_sparse_generator(rng, dim, 3, 0, big=12), max_block=6, dense_below=0),
         SparseGeneratorGate(random_sparse_generator(rng, dim, 10, 8)),
-        SparseGeneratorGate(random_sparse_generator(rng, dim, 3, 0, big=12), max_block=6),
         SparseGeneratorGate(sp.diags(rng.normal(size=dim))),
     ]
     for i in range(12):
-        c.append(gates[i % 3], int(rng.integers(4)), scale=rng.uniform(-1.5, 1.5))
+        c.append(gates[i % len(gates)], int(rng.integers(4)), scale=rng.uniform(-1.5, 1.5))
     check_gradients(c, rng)
