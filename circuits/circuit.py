@@ -12,13 +12,14 @@ overlaps of batches are summed, ``sum_b <phi_b|C|psi_b>`` (a trace for basis bat
 """
 from __future__ import annotations
 
+import threading
 from dataclasses import dataclass
 from typing import Iterable, NamedTuple, Sequence
 
 import numpy as np
 
 from .fused import FusedRegisterCircuit
-from .gates import Gate
+from .gates import Gate, _pairs_apply, _pairs_backward
 from .register import Space, from_view, to_view
 
 __all__ = ["Op", "ParametrizedCircuit"]
@@ -28,6 +29,10 @@ __all__ = ["Op", "ParametrizedCircuit"]
 SMALL_STATE = 8192
 #: small register states are run block-fused (:mod:`circuits.fused`)
 FUSE_REGISTER = True
+#: large-state adjoint gradient: at most this many bytes of forward-pass states are
+#: kept (the gates' touched slices, or whole states for gates without a pair form);
+#: gates beyond the cap un-apply the state in the backward pass instead
+MAX_KEPT_BYTES = 256 * 2**20
 
 
 class _Compiled(NamedTuple):
@@ -200,8 +205,9 @@ class ParametrizedCircuit:
         """``f = <phi|C(params)|psi0>`` and ``df/dparams`` (complex) by the adjoint method.
 
         One forward pass, then one backward pass that un-applies each gate to the
-        state and to the costate ``C_{>i}^dag phi``; the gradient of gate ``i`` is
-        ``-i scale <costate| G_i |state>``.  Cost about three forward passes.
+        costate ``C_{>i}^dag phi`` (and to the state, where the forward pass could not
+        keep it); the gradient of gate ``i`` is ``-i scale <costate| G_i |state>``.
+        Cost about 2.5-3 forward passes (see :data:`MAX_KEPT_BYTES`).
         """
         p = self._params(params)
         comp = self._compiled()
@@ -221,31 +227,134 @@ class ParametrizedCircuit:
             ovs = fused.overlaps(steps, kept, lam.reshape(nb, -1), need)
             return f, self._scatter_gradient(comp, ovs, p.size)
         angles = angles.tolist()
+        first = comp.first
+        if psi.size > SMALL_STATE:
+            f, ovs = self._adjoint_kept(angles, psi, lam, first)
+            return f, self._scatter_gradient(comp, ovs, p.size)
         psi = self._forward(np.asarray(angles), psi)
         f = complex(np.vdot(lam, psi))
-        first = comp.first
         # state and costate stacked on the batch axis: one un-apply per gate
         work = np.concatenate([psi, lam])
         del psi, lam
         # per-gate overlaps <lam_i|G_i|psi_i>, scattered onto the parameters at the end
         ovs = np.zeros(len(self.ops), dtype=np.complex128)
-        if work.size <= 2 * SMALL_STATE:
-            flat = work.reshape(work.shape[0], -1)
-            plans = self._plans()
-            for i in range(len(self.ops) - 1, first - 1, -1):
-                gate, t = self.ops[i].gate, angles[i]
-                if self.ops[i].index is not None:
-                    ovs[i], flat = gate._overlap_unapply(flat, nb, t, plans[i], i > first)
-                elif i > first:
-                    flat = gate._apply_flat(flat, -t, plans[i])
-        else:
-            for i in range(len(self.ops) - 1, first - 1, -1):
-                op, t = self.ops[i], angles[i]
-                if op.index is not None:
-                    ovs[i] = op.gate.generator_overlap(work[nb:], work[:nb])
-                if i > first:
-                    work = op.gate.apply(work, -t)
+        flat = work.reshape(work.shape[0], -1)
+        plans = self._plans()
+        for i in range(len(self.ops) - 1, first - 1, -1):
+            gate, t = self.ops[i].gate, angles[i]
+            if self.ops[i].index is not None:
+                ovs[i], flat = gate._overlap_unapply(flat, nb, t, plans[i], i > first)
+            elif i > first:
+                flat = gate._apply_flat(flat, -t, plans[i])
         return f, self._scatter_gradient(comp, ovs, p.size)
+
+    def _adjoint_kept(
+        self, angles: list[float], psi: np.ndarray, lam: np.ndarray, first: int
+    ) -> tuple[complex, np.ndarray]:
+        """Large-state adjoint method: ``f`` and the per-gate overlaps ``<lam_i|G_i|psi_i>``.
+
+        The forward pass keeps, for the parametrised gates from ``first`` on, the
+        pre-gate state as far as :data:`MAX_KEPT_BYTES` allows (pair gates keep only the
+        slices they touch: 2/d of the state for a two-level rotation, 4/d^2 for MS).
+        The backward pass then un-applies the costate alone over the kept gates; over
+        the gates past the cap it un-applies state and costate (one sweep per gate
+        gathers both, takes the overlap and writes both back).
+        """
+        ops, n = self.ops, len(self.ops)
+        shape = self.space.shape
+        forms = [op.gate._pair_form(shape) if self.space.register else None for op in ops]
+        # plan what to keep, then one arena for it (one allocation, huge pages if any)
+        sizes = [0] * n
+        budget, cut = MAX_KEPT_BYTES, n  # gates >= cut are not kept
+        for i in range(first, n):
+            if ops[i].index is None:
+                continue
+            form = forms[i]
+            need = form.nbytes(psi) if form is not None else psi.nbytes
+            if need > budget:
+                cut = i
+                break
+            budget -= need
+            sizes[i] = need // psi.itemsize
+        lock = self.__dict__.setdefault("_arena_lock", threading.Lock())
+        owned = lock.acquire(blocking=False)
+        try:
+            arena = self._arena(sum(sizes)) if owned else np.empty(sum(sizes), dtype=np.complex128)
+            return self._adjoint_run(angles, psi, lam, first, forms, sizes, cut, arena)
+        finally:
+            if owned:
+                lock.release()
+
+    def _adjoint_run(
+        self,
+        angles: list[float],
+        psi: np.ndarray,
+        lam: np.ndarray,
+        first: int,
+        forms: list,
+        sizes: list[int],
+        cut: int,
+        arena: np.ndarray,
+    ) -> tuple[complex, np.ndarray]:
+        """Forward pass keeping slices in ``arena``, then the backward pass (see above)."""
+        ops, n = self.ops, len(self.ops)
+        starts = np.concatenate([[0], np.cumsum(sizes)]).tolist()
+        kept = [arena[starts[i] : starts[i + 1]] if sizes[i] else None for i in range(n)]
+        slice_max = max([f.slice_size(psi) for f in forms if f is not None] + [1])
+        tmp = np.empty(6 * slice_max, dtype=np.complex128)
+        for i in range(n):
+            op, t, form = ops[i], angles[i], forms[i]
+            if kept[i] is not None:
+                if form is not None:
+                    psi = _pairs_apply(form, psi, t, keep=kept[i], tmp=tmp)
+                    continue
+                np.copyto(kept[i], psi.reshape(-1))
+            psi = op.gate.apply(psi, t) if form is None else _pairs_apply(form, psi, t, tmp=tmp)
+        f = complex(np.vdot(lam, psi))
+        ovs = np.zeros(n, dtype=np.complex128)
+        for i in range(n - 1, first - 1, -1):
+            op, t, form = ops[i], angles[i], forms[i]
+            unapply = i > first
+            if i >= cut:
+                live = i > cut  # state still needed below this gate
+                if op.index is None:
+                    if live:
+                        psi = op.gate.apply(psi, -t) if form is None else _pairs_apply(form, psi, -t, tmp=tmp)
+                elif form is not None:
+                    ovs[i] = _pairs_backward(form, lam, t, unapply, tmp, psi=psi, unapply_psi=live)
+                    continue
+                else:
+                    ovs[i] = op.gate.generator_overlap(lam, psi)
+                    if live:
+                        psi = op.gate.apply(psi, -t)
+            elif form is not None and op.index is not None:
+                ovs[i] = _pairs_backward(form, lam, t, unapply, tmp, kept=kept[i])
+                kept[i] = None
+                continue
+            elif op.index is not None:
+                lam = np.ascontiguousarray(op.gate.apply(lam, -t))
+                ovs[i] = op.gate.generator_overlap(lam, kept[i].reshape(lam.shape))
+                kept[i] = None
+                continue
+            if unapply:
+                lam = op.gate.apply(lam, -t) if form is None else _pairs_apply(form, lam, -t, tmp=tmp)
+                lam = np.ascontiguousarray(lam)
+        return f, ovs
+
+    def _arena(self, size: int) -> np.ndarray:
+        """Buffer for the kept forward-pass slices, reused between calls (caller holds
+        ``_arena_lock``).
+
+        Touching fresh memory (page faults) costs about as much as a gate, so the
+        buffer stays with the circuit (at most :data:`MAX_KEPT_BYTES`) until it is
+        dropped or a call needs a larger one.  A call made while another holds the
+        buffer (threads) uses a private one.
+        """
+        buf = self.__dict__.get("_arena_buf")
+        if buf is None or buf.size < size:
+            self._arena_buf = None
+            buf = self._arena_buf = np.empty(size, dtype=np.complex128)
+        return buf[:size]
 
     @staticmethod
     def _scatter_gradient(comp: _Compiled, ovs: np.ndarray, n: int) -> np.ndarray:

@@ -24,7 +24,7 @@ from __future__ import annotations
 import cmath
 import math
 from abc import ABC, abstractmethod
-from typing import Sequence
+from typing import NamedTuple, Sequence
 
 import numpy as np
 
@@ -54,11 +54,6 @@ def two_level_ops(j: int, k: int, d: int) -> tuple[np.ndarray, np.ndarray, np.nd
     return x, y, z
 
 
-def _idx(ndim: int, assign: dict[int, int]) -> tuple:
-    """Index tuple selecting fixed levels on some canonical-view axes."""
-    return tuple(assign.get(ax, slice(None)) for ax in range(ndim))
-
-
 def _flat_levels(shape: tuple[int, ...]) -> np.ndarray:
     """``(K, dim)`` level of every qudit in every flat basis index (row-major)."""
     return np.indices(shape).reshape(len(shape), -1)
@@ -82,6 +77,146 @@ def _pair_rotate(
     x[:, ia] = c * a + m_ab * b
     x[:, ib] = m_ba * a + c * b
     return a, b
+
+
+class _PairForm(NamedTuple):
+    """A gate acting as the same 2 x 2 rotation on pairs of strided slices.
+
+    The canonical view is reshaped to ``shape`` (batch folded into the first axis);
+    ``pairs`` lists ``(slice_a, slice_b, w)``.  ``U(t)`` maps each pair
+    ``(a, b) -> (c a - i s w b, -i s conj(w) a + c b)`` with ``c, s = cos, sin(freq t)``,
+    and the generator is ``gain * [[0, w], [conj(w), 0]]`` on each pair.
+    """
+
+    shape: tuple[int, ...]
+    pairs: tuple[tuple[tuple, tuple, complex], ...]
+    freq: float
+    gain: float
+
+    def coeffs(self, t: float) -> tuple[float, complex]:
+        return math.cos(self.freq * t), -1j * math.sin(self.freq * t)
+
+    def nbytes(self, view: np.ndarray) -> int:
+        """Bytes kept by :func:`_pairs_apply` with ``keep`` for this view."""
+        return 2 * len(self.pairs) * self.slice_size(view) * view.itemsize
+
+    def slice_size(self, view: np.ndarray) -> int:
+        """Amplitudes in one slice of ``view``."""
+        return view.size // int(np.prod(self.shape[1::2]))
+
+
+def _pairs_apply(
+    form: _PairForm, view: np.ndarray, t: float, keep: np.ndarray | None = None, tmp: np.ndarray | None = None
+) -> np.ndarray:
+    """``U(t)`` on a canonical view in place, slice by slice; returns the view.
+
+    ``keep`` (flat complex buffer of :meth:`_PairForm.nbytes`) receives the pre-gate
+    slices ``a_0, b_0, a_1, b_1, ...``; ``tmp`` (flat, at least three slices) is scratch."""
+    if not view.flags.c_contiguous:
+        view = np.ascontiguousarray(view)
+    x = view.reshape(form.shape)
+    c, ms = form.coeffs(t)
+    for n, (ia, ib, w) in enumerate(form.pairs):
+        xa, xb = x[ia], x[ib]
+        size = xa.size
+        if keep is not None:
+            a = keep[2 * n * size : (2 * n + 1) * size].reshape(xa.shape)
+            b = keep[(2 * n + 1) * size : (2 * n + 2) * size].reshape(xa.shape)
+            np.copyto(a, xa)
+            np.copyto(b, xb)
+        else:
+            a = xa.copy() if tmp is None else tmp[size : 2 * size].reshape(xa.shape)
+            if tmp is not None:
+                np.copyto(a, xa)
+            b = xb
+        scratch = None if tmp is None else tmp[:size].reshape(xa.shape)
+        if keep is not None and tmp is not None:
+            new = tmp[2 * size : 3 * size].reshape(xa.shape)
+            np.multiply(a, c, out=new)
+            new += np.multiply(b, ms * w, out=scratch)
+            np.copyto(xa, new)
+            np.multiply(b, c, out=new)
+            new += np.multiply(a, ms * w.conjugate(), out=scratch)
+            np.copyto(xb, new)
+            continue
+        xa *= c
+        xa += np.multiply(b, ms * w, out=scratch)
+        xb *= c
+        xb += np.multiply(a, ms * w.conjugate(), out=scratch)
+    return view
+
+
+def _pairs_overlap(form: _PairForm, lam: np.ndarray, psi: np.ndarray) -> complex:
+    """``sum_b <lam_b|G|psi_b>`` from the pair slices."""
+    xl, xp = lam.reshape(form.shape), psi.reshape(form.shape)
+    ov = 0j
+    for ia, ib, w in form.pairs:
+        la, lb = np.ascontiguousarray(xl[ia]), np.ascontiguousarray(xl[ib])
+        ov += w * np.vdot(la, xp[ib].copy()) + w.conjugate() * np.vdot(lb, xp[ia].copy())
+    return form.gain * complex(ov)
+
+
+def _pairs_backward(
+    form: _PairForm,
+    lam: np.ndarray,
+    t: float,
+    unapply: bool,
+    tmp: np.ndarray,
+    kept: np.ndarray | None = None,
+    psi: np.ndarray | None = None,
+    unapply_psi: bool = False,
+) -> complex:
+    """One backward step of the adjoint gradient for a pair gate, one sweep per pair.
+
+    ``lam`` is the costate after the gate (contiguous canonical view, un-applied in
+    place when ``unapply``); ``tmp`` is flat scratch of at least six slices.  The state
+    comes either as ``kept`` (pre-gate slices from :func:`_pairs_apply`) or as the
+    post-gate view ``psi`` (un-applied in place when ``unapply_psi``).  Returns
+    ``<lam|G|psi>`` (with ``kept``: ``<lam_post|U G|psi_pre>``, the same number since
+    ``G`` commutes with ``U``).
+    """
+    xl = lam.reshape(form.shape)
+    xp = None if psi is None else psi.reshape(form.shape)
+    c, ms = form.coeffs(t)
+    ov = 0j
+    for n, (ia, ib, w) in enumerate(form.pairs):
+        ya, yb = xl[ia], xl[ib]
+        size = ya.size
+        la, lb, scratch, pa, pb, new = (tmp[m * size : (m + 1) * size].reshape(ya.shape) for m in range(6))
+        np.copyto(la, ya)
+        np.copyto(lb, yb)
+        wc = w.conjugate()
+        if kept is not None:
+            a = kept[2 * n * size : (2 * n + 1) * size]
+            b = kept[(2 * n + 1) * size : (2 * n + 2) * size]
+            if not unapply:
+                lf, lg = la.reshape(-1), lb.reshape(-1)
+                # U G = gain * [[ms, c w], [c conj(w), ms]] on the pair
+                ov += ms * (np.vdot(lf, a) + np.vdot(lg, b)) + c * (w * np.vdot(lf, b) + wc * np.vdot(lg, a))
+                continue
+            # pre-gate costate computed contiguously, paired with the pre-gate state
+            np.multiply(la, c, out=pa)
+            pa -= np.multiply(lb, ms * w, out=scratch)
+            np.multiply(lb, c, out=pb)
+            pb -= np.multiply(la, ms * wc, out=scratch)
+            np.copyto(ya, pa)
+            np.copyto(yb, pb)
+            ov += w * np.vdot(pa.reshape(-1), b) + wc * np.vdot(pb.reshape(-1), a)
+            continue
+        za, zb = xp[ia], xp[ib]
+        np.copyto(pa, za)
+        np.copyto(pb, zb)
+        ov += w * np.vdot(la, pb) + wc * np.vdot(lb, pa)
+        # un-apply computed contiguously, then written back to the strided slices
+        for ok, (za, zb, pa, pb) in ((unapply_psi, (za, zb, pa, pb)), (unapply, (ya, yb, la, lb))):
+            if ok:
+                np.multiply(pa, c, out=new)
+                new -= np.multiply(pb, ms * w, out=scratch)
+                np.copyto(za, new)
+                np.multiply(pb, c, out=new)
+                new -= np.multiply(pa, ms * wc, out=scratch)
+                np.copyto(zb, new)
+    return form.gain * complex(ov)
 
 
 class Gate(ABC):
@@ -122,6 +257,16 @@ class Gate(ABC):
         """Dense ``exp(-i t G)`` of :meth:`generator` (by eigendecomposition)."""
         w, v = np.linalg.eigh(self.generator())
         return (v * np.exp(-1j * t * w)) @ v.conj().T
+
+    def _pair_form(self, shape: tuple[int, ...]) -> _PairForm | None:
+        """Pair-slice form on a register of ``shape`` (cached), or None if the gate has none."""
+        cache = self.__dict__.setdefault("_pair_forms", {})
+        if shape not in cache:
+            cache[shape] = self._make_pair_form(shape)
+        return cache[shape]
+
+    def _make_pair_form(self, shape: tuple[int, ...]) -> _PairForm | None:
+        return None
 
     # -- flat fast path (small states; used by the circuit engine) ------------
     def _plan(self, shape: tuple[int, ...]) -> object:
@@ -170,24 +315,17 @@ class TwoLevelRotation(Gate):
         x, y, _ = two_level_ops(self.j, self.k, self.d)
         return 0.5 * (np.cos(self.phi) * x + np.sin(self.phi) * y)
 
+    def _make_pair_form(self, shape: tuple[int, ...]) -> _PairForm:
+        q = self.qudits[0]
+        rest = int(np.prod(shape[q + 1 :], dtype=np.int64))
+        w = cmath.exp(-1j * self.phi)  # <j|G|k> = w / 2
+        return _PairForm((-1, self.d, rest), (((slice(None), self.j), (slice(None), self.k), w),), 0.5, 0.5)
+
     def apply(self, view: np.ndarray, t: float) -> np.ndarray:
-        ax = self.qudits[0] + 1
-        ij, ik = _idx(view.ndim, {ax: self.j}), _idx(view.ndim, {ax: self.k})
-        c, s = np.cos(0.5 * t), np.sin(0.5 * t)
-        m_jk = -1j * s * np.exp(-1j * self.phi)
-        m_kj = -1j * s * np.exp(1j * self.phi)
-        a = view[ij].copy()
-        view[ij] *= c
-        view[ij] += m_jk * view[ik]
-        view[ik] *= c
-        view[ik] += m_kj * a
-        return view
+        return _pairs_apply(self._pair_form(view.shape[1:]), view, t)
 
     def generator_overlap(self, lam: np.ndarray, psi: np.ndarray) -> complex:
-        ax = self.qudits[0] + 1
-        ij, ik = _idx(psi.ndim, {ax: self.j}), _idx(psi.ndim, {ax: self.k})
-        e = np.exp(1j * self.phi)
-        return 0.5 * (np.vdot(lam[ij], psi[ik]) / e + np.vdot(lam[ik], psi[ij]) * e)
+        return _pairs_overlap(self._pair_form(psi.shape[1:]), np.ascontiguousarray(lam), np.ascontiguousarray(psi))
 
     def _make_plan(self, shape: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray]:
         lv = _flat_levels(shape)
@@ -238,31 +376,20 @@ class MSGate(Gate):
         p = np.cos(self.phi) * x + np.sin(self.phi) * y
         return np.kron(p, p)
 
-    def _slices(self, ndim: int) -> tuple[tuple, tuple, tuple, tuple]:
-        a1, a2 = self.qudits[0] + 1, self.qudits[1] + 1
-        j, k = self.j, self.k
-        return (
-            _idx(ndim, {a1: j, a2: j}),
-            _idx(ndim, {a1: j, a2: k}),
-            _idx(ndim, {a1: k, a2: j}),
-            _idx(ndim, {a1: k, a2: k}),
+    def _make_pair_form(self, shape: tuple[int, ...]) -> _PairForm:
+        q1, q2 = sorted(self.qudits)
+        mid = int(np.prod(shape[q1 + 1 : q2], dtype=np.int64))
+        rest = int(np.prod(shape[q2 + 1 :], dtype=np.int64))
+        j, k, sl = self.j, self.k, slice(None)
+        # P|j> = e^{i phi}|k>, P|k> = e^{-i phi}|j>: <jj|G|kk> = e^{-2i phi}, <jk|G|kj> = 1
+        pairs = (
+            ((sl, j, sl, j), (sl, k, sl, k), cmath.exp(-2j * self.phi)),
+            ((sl, j, sl, k), (sl, k, sl, j), 1.0 + 0j),
         )
+        return _PairForm((-1, self.d, mid, self.d, rest), pairs, 1.0, 1.0)
 
     def apply(self, view: np.ndarray, t: float) -> np.ndarray:
-        jj, jk, kj, kk = self._slices(view.ndim)
-        c, s = np.cos(t), np.sin(t)
-        e2 = np.exp(2j * self.phi)
-        # P|j> = e^{i phi}|k>, P|k> = e^{-i phi}|j>
-        a_jj, a_jk = view[jj].copy(), view[jk].copy()
-        view[jj] *= c
-        view[jj] += (-1j * s / e2) * view[kk]
-        view[kk] *= c
-        view[kk] += (-1j * s * e2) * a_jj
-        view[jk] *= c
-        view[jk] += (-1j * s) * view[kj]
-        view[kj] *= c
-        view[kj] += (-1j * s) * a_jk
-        return view
+        return _pairs_apply(self._pair_form(view.shape[1:]), view, t)
 
     def _make_plan(self, shape: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         # pairs (jj, kk) and (jk, kj) stacked; weight 1/e2 resp. 1 on the first member
@@ -296,14 +423,7 @@ class MSGate(Gate):
         return complex(ov), work
 
     def generator_overlap(self, lam: np.ndarray, psi: np.ndarray) -> complex:
-        jj, jk, kj, kk = self._slices(psi.ndim)
-        e2 = np.exp(2j * self.phi)
-        return (
-            np.vdot(lam[kk], psi[jj]) * e2
-            + np.vdot(lam[jj], psi[kk]) / e2
-            + np.vdot(lam[kj], psi[jk])
-            + np.vdot(lam[jk], psi[kj])
-        )
+        return _pairs_overlap(self._pair_form(psi.shape[1:]), np.ascontiguousarray(lam), np.ascontiguousarray(psi))
 
 
 class DiagonalGate(Gate):

@@ -1,5 +1,6 @@
-"""The three evaluation paths (block-fused, per-gate flat, strided slices) agree with
-dense references: products of scipy.linalg.expm and central finite differences."""
+"""The evaluation paths (block-fused, per-gate flat, strided slices; the last with all,
+some or none of the forward pass kept for the adjoint gradient) agree with dense
+references: products of scipy.linalg.expm and central finite differences."""
 from __future__ import annotations
 
 import numpy as np
@@ -14,15 +15,20 @@ from circuits.random_circuits import random_circuit, random_hermitian, random_st
 from circuits.register import Space, embed_local
 from test_circ_gradient import finite_difference  # central differences, O(h^2)
 
-PATHS = ["fused", "flat", "slices"]
+PATHS = ["fused", "flat", "slices", "slices-capped", "slices-unkept"]
 
 
 @pytest.fixture(params=PATHS)
 def path(request, monkeypatch):
     if request.param != "fused":
         monkeypatch.setattr(circuit_mod, "FUSE_REGISTER", False)
-    if request.param == "slices":
+    if request.param.startswith("slices"):
         monkeypatch.setattr(circuit_mod, "SMALL_STATE", 0)
+    if request.param == "slices-capped":
+        # room for a few gates' slices only: the backward pass switches mid-circuit
+        monkeypatch.setattr(circuit_mod, "MAX_KEPT_BYTES", 3000)
+    if request.param == "slices-unkept":
+        monkeypatch.setattr(circuit_mod, "MAX_KEPT_BYTES", 0)
     return request.param
 
 
@@ -91,3 +97,18 @@ def test_fixed_only_and_edited_circuits(path):
     np.testing.assert_allclose(c.unitary(p), dense_circuit(c, p), atol=1e-12)
     c.ops[0] = c.ops[1]
     np.testing.assert_allclose(c.unitary(p), dense_circuit(c, p), atol=1e-12)
+
+
+def test_kept_gradient_repeat_calls_and_cap_switch(monkeypatch):
+    # the kept-slice buffer is reused between calls and resized; every cap gives the
+    # same gradient, checked against central finite differences (O(h^2))
+    monkeypatch.setattr(circuit_mod, "SMALL_STATE", 0)
+    rng = np.random.default_rng(34)
+    c = random_circuit(rng, 4, 3, 30, 9)
+    psi, phi = random_state(rng, 81), random_state(rng, 81)
+    p = rng.uniform(-np.pi, np.pi, size=c.n_params)
+    fd = finite_difference(lambda x: np.vdot(phi, c.apply(x, psi)), p)
+    for cap in (0, 2000, 10**4, 10**9, 10**9):
+        monkeypatch.setattr(circuit_mod, "MAX_KEPT_BYTES", cap)
+        _, df = c.overlap_and_gradient(p, psi, phi)
+        np.testing.assert_allclose(df, fd, atol=1e-6)
