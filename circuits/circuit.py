@@ -46,6 +46,35 @@ class _Compiled(NamedTuple):
     first: int  # first parametrised gate (len(ops) if none)
 
 
+class _Segment(NamedTuple):
+    """A step of the small-state path: one gate (``table is None``) or a run of consecutive
+    diagonal subspace gates ``start..stop-1`` merged into one phase multiplication, with
+    ``table`` the (run length, dim) stack of their diagonals."""
+
+    start: int
+    stop: int
+    table: np.ndarray | None
+
+
+def _segments(ops: Sequence["Op"]) -> list[_Segment]:
+    """Group consecutive diagonal subspace gates (they commute, and in the adjoint pass the
+    product conj(costate) * state is the same for all of them, so one matrix-vector product
+    gives every overlap of the run)."""
+    out: list[_Segment] = []
+    i = 0
+    while i < len(ops):
+        j = i
+        while j < len(ops) and getattr(ops[j].gate, "is_diagonal", False) and hasattr(ops[j].gate, "h"):
+            j += 1
+        if j - i >= 2:
+            out.append(_Segment(i, j, np.stack([ops[k].gate.h for k in range(i, j)])))
+            i = j
+        else:
+            out.append(_Segment(i, i + 1, None))
+            i += 1
+    return out
+
+
 @dataclass(frozen=True)
 class Op:
     """One gate of a circuit with its parameter binding.
@@ -175,6 +204,16 @@ class ParametrizedCircuit:
             cached = self._fused_cache = (comp, FusedRegisterCircuit([op.gate for op in comp.ops], self.space.shape))
         return cached[1]
 
+    def _segments(self) -> list[_Segment]:
+        """Small-state steps with merged diagonal runs (subspace mode; cached per op list)."""
+        comp = self._compiled()
+        cached = self.__dict__.get("_segment_cache")
+        if cached is None or cached[0] is not comp:
+            segs = _segments(comp.ops) if not self.space.register else [
+                _Segment(i, i + 1, None) for i in range(len(comp.ops))]
+            cached = self._segment_cache = (comp, segs)
+        return cached[1]
+
     def _plans(self) -> list[object]:
         """Each gate's flat fast-path plan for this space (cached on the gates)."""
         shape = self.space.shape
@@ -184,12 +223,17 @@ class ParametrizedCircuit:
         fused = self._fused(view.size)
         if fused is not None:
             return fused.forward(angles, view.reshape(view.shape[0], -1))[0].reshape(view.shape)
-        angles = angles.tolist()
         if view.size <= SMALL_STATE:
             flat = view.reshape(view.shape[0], -1)
-            for op, t, plan in zip(self.ops, angles, self._plans()):
-                flat = op.gate._apply_flat(flat, t, plan)
+            plans = self._plans()
+            listed = angles.tolist()
+            for seg in self._segments():
+                if seg.table is None:
+                    flat = self.ops[seg.start].gate._apply_flat(flat, listed[seg.start], plans[seg.start])
+                else:
+                    flat *= np.exp(-1j * (angles[seg.start:seg.stop] @ seg.table))
             return flat.reshape(view.shape)
+        angles = angles.tolist()
         for op, t in zip(self.ops, angles):
             view = op.gate.apply(view, t)
         return view
@@ -240,7 +284,17 @@ class ParametrizedCircuit:
         ovs = np.zeros(len(self.ops), dtype=np.complex128)
         flat = work.reshape(work.shape[0], -1)
         plans = self._plans()
-        for i in range(len(self.ops) - 1, first - 1, -1):
+        angle_array = np.asarray(angles)
+        for seg in reversed(self._segments()):
+            if seg.stop <= first:
+                break
+            if seg.table is not None:
+                # conj(lam) * psi is unchanged by the run's phases: one product gives all overlaps
+                ovs[seg.start:seg.stop] = seg.table @ np.einsum("bi,bi->i", flat[nb:].conj(), flat[:nb])
+                if seg.start > first:
+                    flat *= np.exp(1j * (angle_array[seg.start:seg.stop] @ seg.table))
+                continue
+            i = seg.start
             gate, t = self.ops[i].gate, angles[i]
             if self.ops[i].index is not None:
                 ovs[i], flat = gate._overlap_unapply(flat, nb, t, plans[i], i > first)

@@ -78,3 +78,28 @@ def test_subspace_gradients_shared_parameters():
     for i in range(12):
         c.append(gates[i % len(gates)], int(rng.integers(4)), scale=rng.uniform(-1.5, 1.5))
     check_gradients(c, rng)
+
+
+def test_subspace_runs_of_diagonal_gates():
+    # consecutive diagonal subspace gates are merged into one phase step; reference: product
+    # of scipy.linalg.expm of the dense generators, and central finite differences
+    rng = np.random.default_rng(8)
+    dim = 40
+    diags = [SparseGeneratorGate(sp.diags(rng.normal(size=dim))) for _ in range(4)]
+    hop = SparseGeneratorGate(random_sparse_generator(rng, dim, 10, 8))
+    c = ParametrizedCircuit(Space.subspace(dim), 3)
+    c.append(diags[0], None, offset=0.3)  # a fixed gate opening a run before the first parameter
+    c.append(diags[1], 0)
+    c.append(diags[2], 1, scale=-0.5)
+    c.append(hop, 2)
+    c.append(diags[3], 0, scale=2.0)  # shared parameter
+    c.append(diags[0], None, offset=-0.7)  # fixed gate inside a run
+    c.append(diags[1], 2)
+    p = rng.uniform(-np.pi, np.pi, size=3)
+    psi = random_state(rng, (dim,))
+    u = np.eye(dim, dtype=complex)
+    for op, t in zip(c.ops, c.angles(p)):
+        u = sla.expm(-1j * t * op.gate.generator()) @ u
+    np.testing.assert_allclose(c.apply(p, psi), u @ psi, atol=1e-12)
+    check_gradients(c, rng)
+    check_gradients(c, rng, batch=3)
