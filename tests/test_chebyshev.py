@@ -44,12 +44,3 @@ def test_evolution_methods_agree():
         np.testing.assert_allclose(cheb.series[name].values, ref.series[name].values, atol=1e-10)
     assert cheb.attributes["energy_drift"] < 1e-12 and cheb.attributes["norm_drift"] < 1e-12
 
-
-def test_product_threads_follow_omp_setting(monkeypatch):
-    # sweep workers pin BLAS/OpenMP threads to one; the sparse products must follow
-    from lgt.evolution import product_threads
-
-    monkeypatch.setenv("OMP_NUM_THREADS", "1")
-    assert product_threads() == 1
-    monkeypatch.delenv("OMP_NUM_THREADS")
-    assert 1 <= product_threads() <= 4
