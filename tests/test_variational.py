@@ -43,7 +43,6 @@ def test_symmetric_layers_follow_exact_dynamics_without_leakage(small_basis):
         assert np.allclose(np.linalg.norm(traj.states, axis=1), 1.0)
 
 
-@pytest.mark.slow
 def test_hardware_layers_follow_exact_dynamics(small_basis):
     # reference: exact propagation with scipy expm_multiply; fidelity >= 0.999 up to t = 2 (K = 3)
     psi0 = vacuum(small_basis)
