@@ -215,9 +215,13 @@ class ParametrizedCircuit:
         return cached[1]
 
     def _plans(self) -> list[object]:
-        """Each gate's flat fast-path plan for this space (cached on the gates)."""
-        shape = self.space.shape
-        return [op.gate._plan(shape) for op in self.ops]
+        """Each gate's flat fast-path plan for this space (cached per op list)."""
+        comp = self._compiled()
+        cached = self.__dict__.get("_plan_cache")
+        if cached is None or cached[0] is not comp:
+            shape = self.space.shape
+            cached = self._plan_cache = (comp, [op.gate._plan(shape) for op in comp.ops])
+        return cached[1]
 
     def _forward(self, angles: np.ndarray, view: np.ndarray) -> np.ndarray:
         fused = self._fused(view.size)

@@ -127,10 +127,10 @@ class SparseGeneratorGate(Gate):
         off = sp.coo_matrix(mat - sp.diags(mat.diagonal()))
         off.eliminate_zeros()
         self.is_diagonal = off.nnz == 0
+        self.dense = None
         if self.is_diagonal:
             self.h = mat.diagonal().real.copy()
             return
-        self.dense = None
         if self.dim <= (DENSE_DIM if dense_below is None else dense_below):  # tiny spaces: two small matrix products beat gather/scatter
             dense = mat.toarray()
             w, v = np.linalg.eigh(dense)
@@ -173,6 +173,24 @@ class SparseGeneratorGate(Gate):
             x = view[:, members].T
             view[:, members] = expm_multiply((-1j * t) * sub, x).T
         return view
+
+    def _apply_flat(self, x: np.ndarray, t: float, plan: object) -> np.ndarray:
+        return self.apply(x, t)  # subspace views are already flat (B, dim)
+
+    def _overlap_unapply(
+        self, work: np.ndarray, nb: int, t: float, plan: object, unapply: bool
+    ) -> tuple[complex, np.ndarray]:
+        if self.dense is None:
+            return super()._overlap_unapply(work, nb, t, plan, unapply)
+        # in the eigenbasis: <lam|G|psi> = sum_k conj(c_lam,k) w_k c_psi,k with c = V^dag x,
+        # and the un-apply reuses the same coefficients
+        _, w, v, v_conj = self.dense
+        coeff = work @ v_conj
+        ov = complex(np.sum(coeff[nb:].conj() * (w * coeff[:nb])))
+        if unapply:
+            coeff *= np.exp(1j * t * w)
+            work = coeff @ v.T
+        return ov, work
 
     def generator_overlap(self, lam: np.ndarray, psi: np.ndarray) -> complex:
         if self.is_diagonal:
