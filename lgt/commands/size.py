@@ -34,10 +34,11 @@ def _run(args: argparse.Namespace) -> int:
             print(f"{r['layers']:>3} {r['parameters']:>7} {r['max_infidelity']:>10.2e} {r['max_leakage']:>9.1e} "
                   f"{r['two_qudit_gates']:>9} {r['single_qudit_gates']:>9} {r['other_gates']:>6} "
                   f"{r['duration_us']:>9.0f} {r['noise_fidelity']:>8.4f} {r['total_fidelity']:>8.4f}{mark}")
+        best = part.get("best_layers_under_noise", summary["budget"]["best_layers_under_noise"])
+        print(f"best {family} depth under the gate-error budget (max F total): {best}")
     print()
     chosen = summary["layers"]
     print(f"least depth of {summary['family']} layers meeting the tolerance: {chosen if chosen is not None else 'none up to max_layers'}")
-    print(f"best depth under the gate-error budget: {summary['budget']['best_layers_under_noise']}")
     for t in summary["trotter"]:
         steps = t["steps"] if t["steps"] is not None else "not reached"
         print(f"Trotter order {t['order']}: {steps} steps, {t['two_qudit_gates']} two-qudit gates, "
