@@ -34,8 +34,8 @@ def _run(args: argparse.Namespace) -> int:
 
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add the ``plot`` subcommand."""
-    p = subparsers.add_parser("plot", help="write PNG figures of an evolution run file")
-    p.add_argument("run", help="HDF5 file written by 'fluxline evolve --output'")
+    p = subparsers.add_parser("plot", help="write PNG figures of an evolve or fit run file")
+    p.add_argument("run", help="HDF5 file written by 'fluxline evolve --output' or 'fluxline fit --output'")
     p.add_argument("--outdir", help="directory for the PNGs (default: the run file name without .h5)")
     p.add_argument("--overlay", help="another run file drawn dashed on top (e.g. a variational fit)")
     p.set_defaults(func=_run)
