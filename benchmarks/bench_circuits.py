@@ -130,7 +130,7 @@ def small_circuits(rng: np.random.Generator) -> None:
         c = ParametrizedCircuit(space)
         for i in range(64):
             c.append(SparseGeneratorGate(random_sparse_generator(rng, dim, dim // 5, dim // 5)), i)
-        cases.append((f"64 sparse pair gates", c, dim))
+        cases.append(("64 sparse pair gates", c, dim))
     for name, c, dim in cases:
         p = rng.normal(size=c.n_params)
         psi, phi = random_state(rng, dim), random_state(rng, dim)

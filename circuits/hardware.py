@@ -24,7 +24,7 @@ from importlib import resources
 from pathlib import Path
 
 from .accounting import schedule
-from .circuit import Op, ParametrizedCircuit
+from .circuit import ParametrizedCircuit
 from .gates import DiagonalGate, Gate, MSGate, TwoLevelRotation
 
 if sys.version_info >= (3, 11):

@@ -19,7 +19,7 @@ Energies are in lattice units; every other quantity is dimensionless.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Callable, Iterable, Iterator
+from typing import Callable, Iterable
 
 import numpy as np
 import scipy.linalg as sla

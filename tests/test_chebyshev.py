@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import numpy as np
-import pytest
 import scipy.linalg as sla
 import scipy.sparse as sp
 from hypothesis import given, settings, strategies as st

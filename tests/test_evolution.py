@@ -59,7 +59,6 @@ def fermion_link_model(N: int, d: int, w: float, m: float, J: float, theta: floa
 
 def product_state(N: int, d: int, occupied: list[int], fields: list[int]):
     """c†…c† |empty⟩ ⊗ |fields⟩, the empty state found as the common kernel of all c_n (qutip)."""
-    K = N - 1
     empty = None
     for candidate in range(2):  # qutip's fdestroy annihilates one of the two qubit levels
         vac = qutip.tensor(*[qutip.basis(2, candidate)] * N)

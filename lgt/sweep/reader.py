@@ -9,7 +9,7 @@ from __future__ import annotations
 import json
 from contextlib import ExitStack
 from pathlib import Path
-from typing import Any, Iterator
+from typing import Any
 
 import h5py
 import numpy as np

@@ -15,7 +15,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from circuits.export import to_dict
-from circuits.hardware import HardwareProfile, load_profile
+from circuits.hardware import load_profile
 from lgt.basis import PhysicalBasis
 from lgt.config import check_keys
 from lgt.model import ModelParams
