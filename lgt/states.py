@@ -197,9 +197,7 @@ def ground_state(basis: PhysicalBasis, params: ModelParams | None = None) -> tup
     from lgt.spectrum import lowest_eigenpairs
 
     if params is not None and params != basis.params:
-        other = PhysicalBasis.__new__(PhysicalBasis)
-        other.params, other.levels, other.codes = params, basis.levels, basis.codes
-        basis = other
+        basis = basis.with_couplings(params)
     energies, vectors = lowest_eigenpairs(build_hamiltonian(basis), 1)
     psi = vectors[:, 0].astype(np.complex128)
     return float(energies[0]), psi / np.linalg.norm(psi)
