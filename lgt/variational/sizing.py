@@ -25,10 +25,32 @@ CRITERION_OBSERVABLES = ("electric_field", "particle_density")
 
 
 @dataclass
-class DepthRow:
+class CostColumns:
+    """Native gates, duration (µs), predicted noise fidelity and total fidelity of a circuit."""
+
+    single_qudit_gates: int
+    two_qudit_gates: int
+    other_gates: int
+    duration_us: float
+    noise_fidelity: float
+    total_fidelity: float
+
+    @staticmethod
+    def of(cost: CircuitCost | None, algorithmic_fidelity: float) -> dict:
+        """Column values for ``cost`` (zeros when there is no circuit)."""
+        if cost is None:
+            return dict(single_qudit_gates=0, two_qudit_gates=0, other_gates=0, duration_us=0.0,
+                        noise_fidelity=0.0, total_fidelity=0.0)
+        return dict(single_qudit_gates=cost.single_qudit, two_qudit_gates=cost.two_qudit,
+                    other_gates=cost.other, duration_us=cost.duration_us, noise_fidelity=cost.fidelity,
+                    total_fidelity=algorithmic_fidelity * cost.fidelity)
+
+
+@dataclass
+class DepthRow(CostColumns):
     """One depth D of the sizing table (fidelities over the whole window [0, T]).
 
-    With the fidelity criterion a depth's fit stops as soon as it exceeds the tolerance;
+    With the fidelity criterion a depth's fit stops as soon as it can no longer win;
     ``reached_time`` is then where it stopped (< T) and ``final_fidelity`` is taken there.
     """
 
@@ -39,30 +61,18 @@ class DepthRow:
     sum_step_infidelity: float
     max_leakage: float
     max_observable_error: float
-    single_qudit_gates: int
-    two_qudit_gates: int
-    other_gates: int
-    duration_us: float
-    noise_fidelity: float
-    total_fidelity: float
     fit_seconds: float
     meets_tolerance: bool
     reached_time: float
 
 
 @dataclass
-class TrotterRow:
+class TrotterRow(CostColumns):
     """Least Trotter steps of one order meeting the tolerance, with the native cost at T."""
 
     order: int
     steps: int | None
     max_infidelity: float
-    single_qudit_gates: int
-    two_qudit_gates: int
-    other_gates: int
-    duration_us: float
-    noise_fidelity: float
-    total_fidelity: float
 
 
 @dataclass
@@ -96,10 +106,11 @@ def evaluate_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: Variational
         meets = traj.max_infidelity <= settings.tolerance
     else:
         meets = obs_err <= settings.observable_tolerance
-    row = DepthRow(layers, ansatz.n_params, traj.max_infidelity, float(traj.fidelity[-1]),
-                   float(traj.step_infidelity.sum()), float(traj.leakage.max()), obs_err,
-                   cost.single_qudit, cost.two_qudit, cost.other, cost.duration_us, cost.fidelity,
-                   float(np.min(traj.fidelity)) * cost.fidelity, seconds, bool(meets), float(traj.times[-1]))
+    row = DepthRow(layers=layers, parameters=ansatz.n_params, max_infidelity=traj.max_infidelity,
+                   final_fidelity=float(traj.fidelity[-1]), sum_step_infidelity=float(traj.step_infidelity.sum()),
+                   max_leakage=float(traj.leakage.max()), max_observable_error=obs_err, fit_seconds=seconds,
+                   meets_tolerance=bool(meets), reached_time=float(traj.times[-1]),
+                   **CostColumns.of(cost, float(np.min(traj.fidelity))))
     return row, traj
 
 
@@ -120,12 +131,9 @@ def trotter_rows(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSe
     rows = []
     for order in settings.trotter_orders:
         res = least_trotter_steps(basis, psi0, settings.t_final, settings.tolerance, order, settings.trotter_max_steps)
-        if res.steps is None:
-            rows.append(TrotterRow(order, None, res.max_infidelity, 0, 0, 0, 0.0, 0.0, 0.0))
-            continue
-        cost = trotter_cost(basis, term_costs, res.steps, order)
-        rows.append(TrotterRow(order, res.steps, res.max_infidelity, cost.single_qudit, cost.two_qudit,
-                               cost.other, cost.duration_us, cost.fidelity, (1 - res.max_infidelity) * cost.fidelity))
+        cost = None if res.steps is None else trotter_cost(basis, term_costs, res.steps, order)
+        rows.append(TrotterRow(order=order, steps=res.steps, max_infidelity=res.max_infidelity,
+                               **CostColumns.of(cost, 1 - res.max_infidelity)))
     return rows
 
 
