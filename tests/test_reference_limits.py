@@ -119,3 +119,16 @@ def test_massless_schwinger_boson_mass():
         masses.append(np.sqrt((4 * e1 ** 2 - e2 ** 2) / 3))
     slope, intercept = np.polyfit(1 / np.sqrt(xs), masses, 1)
     assert intercept == pytest.approx(1 / np.sqrt(np.pi), rel=0.03)
+
+
+def test_lanczos_path_repeats_degenerate_levels():
+    # textbook strong coupling (w = 0): the N − 1 nearest-neighbour mesons are degenerate at
+    # 2m + J above the bare vacuum; N = 16 (6714 states) takes the sparse Lanczos path
+    from lgt.spectrum import DENSE_THRESHOLD
+
+    m, J, N = 0.5, 1.0, 16
+    basis = PhysicalBasis(ModelParams(sites=N, hopping=0.0, mass=m, coupling=J, levels=3))
+    assert basis.dimension > DENSE_THRESHOLD
+    E = lowest_levels(build_hamiltonian(basis), N)
+    np.testing.assert_allclose(E[0], -m * N / 2, atol=1e-9)
+    np.testing.assert_allclose(E[1:], -m * N / 2 + 2 * m + J, atol=1e-9)
