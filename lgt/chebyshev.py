@@ -17,8 +17,10 @@ import scipy.sparse as sp
 from scipy.linalg.blas import zgemm
 from scipy.special import jv
 
-#: Chebyshev vectors gathered before they are folded into the outputs (one BLAS product).
+#: Chebyshev vectors gathered before they are folded into the outputs (one BLAS product),
+#: and the most memory that buffer may take (large states use fewer columns).
 BUFFER = 16
+BUFFER_BYTES = 256 * 2 ** 20
 #: Coefficients below this (relative to the sum's norm) end the series.
 DEFAULT_TOL = 1e-14
 
@@ -94,7 +96,7 @@ class ChebyshevPropagator:
         # outputs with one BLAS product acc += buffer @ coeff[:, block].T (acc = outputs as a
         # Fortran (dim, n_times) array), so the outputs are swept once per BUFFER terms
         acc = np.zeros((psi.size, t.size), dtype=np.complex128, order="F")
-        width = min(BUFFER, n_terms)
+        width = max(1, min(BUFFER, n_terms, BUFFER_BYTES // (16 * max(psi.size, 1))))
         buf = np.empty((psi.size, width), dtype=np.complex128, order="F")
         coeff_t = np.asfortranarray(coeff.T)  # (n_terms, n_times)
         filled, first = 0, 0

@@ -43,3 +43,18 @@ def test_evolution_methods_agree():
         np.testing.assert_allclose(cheb.series[name].values, ref.series[name].values, atol=1e-10)
     assert cheb.attributes["energy_drift"] < 1e-12 and cheb.attributes["norm_drift"] < 1e-12
 
+
+
+def test_small_buffer_gives_the_same_block(monkeypatch):
+    # large states fold fewer Chebyshev vectors at a time; reference: dense scipy.linalg.expm
+    import lgt.chebyshev as cheb
+
+    monkeypatch.setattr(cheb, "BUFFER_BYTES", 16 * 40 * 3)  # a 3-column buffer for dim 40
+    rng = np.random.default_rng(0)
+    a = sp.random(40, 40, density=0.2, random_state=rng)
+    H = sp.csr_matrix(a + a.T)
+    psi = rng.normal(size=40) + 0j
+    psi /= np.linalg.norm(psi)
+    prop = cheb.ChebyshevPropagator(lambda x: H @ x, cheb.gershgorin_interval(H), 0.1)
+    out = prop.block(psi, np.array([0.5, 1.7]))
+    np.testing.assert_allclose(out[1], sla.expm(-1.7j * H.toarray()) @ psi, atol=1e-12)
