@@ -204,7 +204,8 @@ def embed_local(matrix: np.ndarray, qudits: tuple[int, ...], n_qudits: int, d: i
 MAX_REGISTER_DIMENSION = 5_000_000
 
 
-def register_hamiltonian(params: ModelParams, physical_only: bool = True) -> sp.csr_matrix:
+def register_hamiltonian(params: ModelParams, physical_only: bool = True,
+                         basis: PhysicalBasis | None = None) -> sp.csr_matrix:
     """H on the full d^K link register (small registers only).
 
     Parameters
@@ -213,13 +214,15 @@ def register_hamiltonian(params: ModelParams, physical_only: bool = True) -> sp.
         True: P H P — the physical-subspace Hamiltonian embedded, zero on unphysical states.
         False: the sum of :func:`local_terms` — equal to P H P on the physical subspace and
         also acting (block-diagonally) on the unphysical Gauss-law sectors.
+    basis : PhysicalBasis, optional
+        The model's basis when already built (``physical_only``), so it is not enumerated again.
     """
     D = params.levels ** params.n_links
     if D > MAX_REGISTER_DIMENSION:
         raise ValueError(f"register dimension {params.levels}^{params.n_links} = {D} exceeds "
                          f"{MAX_REGISTER_DIMENSION}; use the physical subspace instead")
     if physical_only:
-        basis = PhysicalBasis(params)
+        basis = PhysicalBasis(params) if basis is None else basis.with_couplings(params)
         H = build_hamiltonian(basis).tocoo()
         return sp.csr_matrix((H.data, (basis.codes[H.row], basis.codes[H.col])), shape=(D, D))
     mats = [embed_local(t.matrix, t.qudits, params.n_links, params.levels) for t in local_terms(params)]

@@ -3,11 +3,10 @@
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
 
 import pytest
 
+from cli_runner import run_cli
 from lgt.errors import ConfigError
 from lgt.model import ModelParams
 
@@ -42,14 +41,11 @@ def test_defaults_follow_the_window():
     assert ModelParams(sites=4, levels=4, link="quantum-link").boundary_field == -0.5
 
 
-def _cli(*args, cwd=None):
-    return subprocess.run([sys.executable, "-m", "lgt", *args], capture_output=True, text=True, cwd=cwd)
-
 
 def test_cli_spectrum_json_and_bad_config(tmp_path):
     good = tmp_path / "good.toml"
     good.write_text("[model]\nsites = 4\nhopping = 0.0\nmass = 0.5\ncoupling = 1.0\nlevels = 3\n")
-    out = _cli("spectrum", str(good), "--json", "--count", "3")
+    out = run_cli("spectrum", str(good), "--json", "--count", "3")
     assert out.returncode == 0, out.stderr
     data = json.loads(out.stdout)
     # strong coupling (w = 0), textbook: bare vacuum at -mN/2, then meson states at +2m+J
@@ -57,10 +53,10 @@ def test_cli_spectrum_json_and_bad_config(tmp_path):
     assert data["energies"] == pytest.approx([-1.0, 1.0, 1.0])
     bad = tmp_path / "bad.toml"
     bad.write_text("[model]\nsites = 4\nlevels = 4\n")
-    out = _cli("spectrum", str(bad))
+    out = run_cli("spectrum", str(bad))
     assert out.returncode == 2
     assert "model.levels" in out.stderr
     unknown = tmp_path / "unknown.toml"
     unknown.write_text("[model]\nsites = 4\n[modle]\nx = 1\n")
-    out = _cli("spectrum", str(unknown))
+    out = run_cli("spectrum", str(unknown))
     assert out.returncode == 2 and "modle" in out.stderr

@@ -3,11 +3,10 @@
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
 
 import numpy as np
 
+from cli_runner import run_cli
 from lgt.basis import PhysicalBasis
 from lgt.hamiltonian import build_hamiltonian
 from lgt.model import ModelParams
@@ -34,14 +33,11 @@ compare_families = false
 """
 
 
-def _cli(*args):
-    return subprocess.run([sys.executable, "-m", "lgt", *args], capture_output=True, text=True)
-
 
 def test_size_json_contract(tmp_path):
     path = tmp_path / "size.toml"
     path.write_text(CONFIG)
-    out = _cli("size", str(path), "--json")
+    out = run_cli("size", str(path), "--json")
     assert out.returncode == 0, out.stderr
     data = json.loads(out.stdout)
     for key in ("layers", "table", "trotter", "budget"):
@@ -63,7 +59,7 @@ def test_size_json_contract(tmp_path):
 def test_fit_json_and_exact_reference(tmp_path):
     path = tmp_path / "fit.toml"
     path.write_text(CONFIG.replace("max_layers = 4", "layers = 3"))
-    out = _cli("fit", str(path), "--json", "--circuits", str(tmp_path / "circuits"))
+    out = run_cli("fit", str(path), "--json", "--circuits", str(tmp_path / "circuits"))
     assert out.returncode == 0, out.stderr
     data = json.loads(out.stdout)
     assert data["layers"] == 3 and len(data["table"]) == 1
@@ -89,6 +85,6 @@ def test_fit_json_and_exact_reference(tmp_path):
 def test_bad_variational_config_exit_status(tmp_path):
     path = tmp_path / "bad.toml"
     path.write_text(CONFIG.replace('family = "symmetric"', 'family = "both"'))
-    out = _cli("size", str(path), "--json")
+    out = run_cli("size", str(path), "--json")
     assert out.returncode == 2
     assert "variational.family" in out.stderr

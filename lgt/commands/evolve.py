@@ -7,6 +7,8 @@ import json
 
 import numpy as np
 
+from lgt.commands import config_command
+
 #: Observables the ``--json`` object always carries (added to the run if the config omits them).
 JSON_KEYS = ("particle_density", "electric_field", "loschmidt_echo", "entanglement_entropy", "energy")
 
@@ -51,9 +53,7 @@ def _run(args: argparse.Namespace) -> int:
 
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add the ``evolve`` subcommand."""
-    p = subparsers.add_parser("evolve", help="exact time evolution of the [initial] state of CONFIG")
-    p.add_argument("config", help="TOML file with [model], [initial] and [evolution]")
-    p.add_argument("--output", help="write the run to this HDF5 file")
-    p.add_argument("--json", action="store_true", help="print one JSON object on stdout")
+    p = config_command(subparsers, "evolve", "exact time evolution of the [initial] state of CONFIG",
+                       "TOML file with [model], [initial] and [evolution]", _run,
+                       output_help="write the run to this HDF5 file")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
-    p.set_defaults(func=_run)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 
+from lgt.commands import config_command
 from lgt.config import load_config
 
 
@@ -63,9 +64,7 @@ def _run(args: argparse.Namespace) -> int:
 
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add the ``fit`` subcommand."""
-    p = subparsers.add_parser("fit", help="fit variational layers step by step to the quench")
-    p.add_argument("config", help="TOML file with [model], [initial], [variational]")
-    p.add_argument("--output", help="HDF5 file for the fitted trajectory")
+    p = config_command(subparsers, "fit", "fit variational layers step by step to the quench",
+                       "TOML file with [model], [initial], [variational]", _run,
+                       output_help="HDF5 file for the fitted trajectory")
     p.add_argument("--circuits", help="folder for one circuit JSON file per time step")
-    p.add_argument("--json", action="store_true", help="print one JSON object on stdout")
-    p.set_defaults(func=_run)

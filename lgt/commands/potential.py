@@ -5,6 +5,8 @@ from __future__ import annotations
 import argparse
 import json
 
+from lgt.commands import config_command
+
 
 def _run(args: argparse.Namespace) -> int:
     from lgt.config import load_config
@@ -34,8 +36,6 @@ def _run(args: argparse.Namespace) -> int:
 
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add the ``potential`` subcommand."""
-    p = subparsers.add_parser("potential", help="static potential, string tension and breaking distance")
-    p.add_argument("config", help="TOML file with a [model] section (and optional [potential])")
+    p = config_command(subparsers, "potential", "static potential, string tension and breaking distance",
+                       "TOML file with a [model] section (and optional [potential])", _run)
     p.add_argument("--distances", type=int, nargs="+", help="odd charge separations r")
-    p.add_argument("--json", action="store_true", help="print one JSON object on stdout")
-    p.set_defaults(func=_run)

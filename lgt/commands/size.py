@@ -6,6 +6,7 @@ import argparse
 import json
 import sys
 
+from lgt.commands import config_command
 from lgt.config import load_config
 
 
@@ -50,8 +51,6 @@ def _run(args: argparse.Namespace) -> int:
 
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add the ``size`` subcommand."""
-    p = subparsers.add_parser("size", help="least number of layers meeting the tolerance, with budget and Trotter")
-    p.add_argument("config", help="TOML file with [model], [initial], [variational]")
-    p.add_argument("--output", help="HDF5 file for the sizing results")
-    p.add_argument("--json", action="store_true", help="print one JSON object on stdout")
-    p.set_defaults(func=_run)
+    config_command(subparsers, "size", "least number of layers meeting the tolerance, with budget and Trotter",
+                   "TOML file with [model], [initial], [variational]", _run,
+                   output_help="HDF5 file for the sizing results")

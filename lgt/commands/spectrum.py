@@ -7,6 +7,7 @@ import json
 import time
 
 from lgt.basis import PhysicalBasis
+from lgt.commands import config_command
 from lgt.config import as_int, check_keys, load_config
 from lgt.hamiltonian import build_hamiltonian
 from lgt.model import ModelParams
@@ -59,8 +60,6 @@ def _run(args: argparse.Namespace) -> int:
 
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add the ``spectrum`` subcommand."""
-    p = subparsers.add_parser("spectrum", help="exact low-lying levels of the model in CONFIG")
-    p.add_argument("config", help="TOML file with a [model] section")
+    p = config_command(subparsers, "spectrum", "exact low-lying levels of the model in CONFIG",
+                       "TOML file with a [model] section", _run)
     p.add_argument("--count", type=int, default=None, help="number of levels (default: [spectrum] count or 6)")
-    p.add_argument("--json", action="store_true", help="print one JSON object on stdout")
-    p.set_defaults(func=_run)

@@ -114,7 +114,7 @@ def symmetric_ansatz(basis: PhysicalBasis, layers: int, angles: str = "term",
         by_key = {(t.kind, t.index): CircuitTerm(t.qudits, t.matrix) for t in local_terms(p)}
         terms = [by_key[(k, i)] for k, i, _ in order]
         sp_space = Space.qudits(p.n_links, p.levels)
-        H = register_hamiltonian(p, physical_only=True)
+        H = register_hamiltonian(p, physical_only=True, basis=basis)
     circuit = build_layers(sp_space, layers, generator_layer_builder(sp_space, terms, groups))
     labels = [f"{k}{i}" for k, i, _ in order]
     return ModelAnsatz("symmetric", space, circuit, H, basis, layers, labels)
@@ -127,7 +127,7 @@ def hardware_ansatz(basis: PhysicalBasis, layers: int, spec: NativeLayerSpec | N
         raise ValueError("hardware layers need at least two link qudits")
     reg = Space.qudits(p.n_links, p.levels)
     circuit = build_layers(reg, layers, native_layer_builder(reg, spec))
-    H = register_hamiltonian(p, physical_only=True)
+    H = register_hamiltonian(p, physical_only=True, basis=basis)
     return ModelAnsatz("hardware", "register", circuit, H, basis, layers)
 
 
