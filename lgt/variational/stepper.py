@@ -16,6 +16,7 @@ import numpy as np
 from scipy.sparse.linalg import expm_multiply
 
 from circuits.fitting import fit_to_target
+from lgt.hamiltonian import build_hamiltonian
 from lgt.variational.ansatz import ModelAnsatz
 
 MODES = ("dynamics", "compression")
@@ -59,8 +60,6 @@ class VariationalTrajectory:
 
 def exact_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: int) -> np.ndarray:
     """Exact physical-subspace states at t_k = k dt, shape (n_steps + 1, dim)."""
-    from lgt.hamiltonian import build_hamiltonian
-
     H = ansatz.hamiltonian if ansatz.space == "physical" else build_hamiltonian(ansatz.basis)
     A = (-1j * dt) * H.tocsr()
     out = np.empty((n_steps + 1, psi0.size), dtype=np.complex128)
