@@ -28,7 +28,7 @@ def main(argv: list[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     try:
         return int(args.func(args) or 0)
-    except (ConfigError, ResourceError) as exc:
+    except (ConfigError, ResourceError) as exc:  # errors by kind: see lgt.errors.exit_status
         print(f"fluxline: error: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:

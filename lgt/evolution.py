@@ -28,14 +28,16 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.linalg import LinearOperator, expm_multiply
 
-from lgt.basis import PhysicalBasis, staggering
+from lgt.basis import PhysicalBasis
 from lgt.chebyshev import ChebyshevPropagator, gershgorin_interval
 from lgt.config import as_choice, as_float, as_int, check_keys
-from lgt.errors import ConfigError, ResourceError
+from lgt.errors import ConfigError
 from lgt.hamiltonian import build_hamiltonian
 from lgt.model import ModelParams
 from circuits.blas_threads import single_threaded_blas
 from lgt.observables import OBSERVABLES, Observer
+from lgt.resources import (CHUNK_BYTES, available_memory, check_resources, count_physical_states,  # noqa: F401
+                           estimate_memory)
 from lgt.results import RunResult, TimeSeries
 from lgt.states import prepare_initial_state, resolve_initial
 
@@ -44,81 +46,10 @@ EVOLUTION_KEYS = ("t_final", "dt", "times", "cut", "observables", "drift_toleran
 #: Propagators: Chebyshev series over blocks of stored times (default), or scipy's expm_multiply.
 METHODS = ("chebyshev", "expm_multiply")
 DEFAULT_DRIFT_TOLERANCE = 1e-8
-#: Bytes of stored state vectors one ``expm_multiply`` interval call may return.
-CHUNK_BYTES = 256 * 2 ** 20
 #: Below this many non-zeros H is applied on the calling thread only.
 THREADED_NONZEROS = 200_000
 #: Below this dimension observables are measured inline instead of in a background thread.
 BACKGROUND_MEASURE_DIMENSION = 20_000
-#: Resident memory of the interpreter with numpy/scipy loaded (measured ~0.2 GiB).
-BASELINE_BYTES = 200 * 2 ** 20
-
-
-# ---------------------------------------------------------------------- sizes and memory
-def count_physical_states(params: ModelParams) -> int:
-    """Dimension of the physical subspace by a transfer-matrix count over levels (no enumeration)."""
-    d, K = params.levels, params.n_links
-    step = params.charge_array() - staggering(params.sites)
-    eps = params.boundary_level
-    counts = np.zeros(d, dtype=object)
-    if not 0 <= eps < d:
-        return 0
-    counts[eps] = 1
-    for n in range(K):
-        new = np.zeros(d, dtype=object)
-        for occ in (0, 1):
-            shift = step[n] + occ
-            lo, hi = max(0, shift), min(d, d + shift)
-            if lo < hi:
-                new[lo:hi] += counts[lo - shift:hi - shift]
-        counts = new
-    total = 0
-    for j in range(d):
-        if eps - j - step[-1] in (0, 1):
-            total += counts[j]
-    return int(total)
-
-
-def estimate_memory(params: ModelParams, dimension: int, stored_vectors: int = 8) -> int:
-    """Rough peak bytes of an evolution run (build of H dominates).
-
-    Counts the basis (levels, codes, sort buffers), the COO→CSR build of H with an estimated
-    dim·(1 + 0.6 K) non-zeros (measured 0.55–0.6 K for d = 3; a heuristic, not a bound) at
-    ~70 bytes per non-zero, ``stored_vectors`` complex vectors for propagation/observables, two
-    chunks of stored states and the interpreter baseline. Measured peak RSS: 1.48 GiB at N = 24,
-    d = 3 (estimate 1.6 GiB).
-    """
-    K, N = params.n_links, params.sites
-    nnz = dimension * (1.0 + 0.6 * K * max(1.0, (params.levels - 1) / 2))
-    basis = dimension * (4 * K + 32)
-    build = nnz * 70
-    vectors = dimension * 16 * stored_vectors + dimension * N  # + occupations table
-    chunks = 2 * min(CHUNK_BYTES, dimension * 16 * 1000)  # one chunk propagated, one being measured
-    return int(basis + build + vectors + chunks + BASELINE_BYTES)
-
-
-def available_memory() -> int:
-    """Bytes of memory available now (MemAvailable from /proc/meminfo, else physical memory)."""
-    try:
-        with open("/proc/meminfo") as fh:
-            for line in fh:
-                if line.startswith("MemAvailable:"):
-                    return int(line.split()[1]) * 1024
-    except OSError:
-        pass
-    return int(os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES"))
-
-
-def check_resources(params: ModelParams, limit_bytes: int | None = None) -> tuple[int, int]:
-    """(dimension, estimated bytes); raise ResourceError when the estimate exceeds the limit."""
-    dim = count_physical_states(params)
-    need = estimate_memory(params, dim)
-    limit = available_memory() if limit_bytes is None else limit_bytes
-    if need > limit:
-        raise ResourceError(f"N = {params.sites}, d = {params.levels}: physical dimension {dim:,} needs "
-                            f"about {need / 2 ** 30:.1f} GiB, more than the {limit / 2 ** 30:.1f} GiB "
-                            "available (set [evolution] memory_limit_gb to override)")
-    return dim, need
 
 
 # ---------------------------------------------------------------------- configuration

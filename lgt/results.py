@@ -50,6 +50,8 @@ class RunResult:
         Scalar summaries (strings / numbers / bools).
     timings : dict[str, float]
         Wall-clock seconds of the run's phases.
+    tables : dict[str, Table]
+        Structured result tables (sizing rows, Trotter rows, ...), never JSON strings.
     """
 
     task: str
@@ -58,3 +60,37 @@ class RunResult:
     arrays: dict[str, np.ndarray] = field(default_factory=dict)
     attributes: dict[str, Any] = field(default_factory=dict)
     timings: dict[str, float] = field(default_factory=dict)
+    tables: dict[str, "Table"] = field(default_factory=dict)
+
+
+@dataclass
+class Table:
+    """A structured result table: named columns of equal length (written as one HDF5 group).
+
+    Attributes
+    ----------
+    columns : dict[str, ndarray]
+        Column name → 1-D array (numbers, bools or strings), all of one length.
+    units : dict[str, str]
+        Unit of a column where it has one (``"us"``, ``"lattice energy"``, ...).
+    description : str
+        One line saying what a row is.
+    """
+
+    columns: dict[str, np.ndarray]
+    units: dict[str, str] = field(default_factory=dict)
+    description: str = ""
+
+    def __post_init__(self) -> None:
+        self.columns = {k: np.asarray(v) for k, v in self.columns.items()}
+        lengths = {k: v.shape[0] for k, v in self.columns.items()}
+        if len(set(lengths.values())) > 1:
+            raise ValueError(f"table columns differ in length: {lengths}")
+
+    def __len__(self) -> int:
+        return next(iter(self.columns.values())).shape[0] if self.columns else 0
+
+    def rows(self) -> list[dict[str, Any]]:
+        """The table as a list of plain-Python row dicts."""
+        names = list(self.columns)
+        return [{n: self.columns[n][i].item() for n in names} for i in range(len(self))]
