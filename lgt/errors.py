@@ -12,6 +12,8 @@ Exit statuses (documented in the README's command table):
       or a resource the run would exceed (memory, disk, permissions)
 3     the run finished but missed its requested tolerance (results still written)
 130   interrupted (SIGINT / Ctrl-C); 143 terminated (SIGTERM / SIGHUP)
+141   the reader of standard output went away (broken pipe, e.g. ``| head``), as for
+      other Unix tools killed by SIGPIPE
 ====  ==========================================================================
 """
 
@@ -29,6 +31,9 @@ EXIT_TOLERANCE_MISSED = 3
 EXIT_INTERRUPTED = 130
 #: Exit status after SIGTERM or SIGHUP (128 + 15).
 EXIT_TERMINATED = 143
+
+#: Exit status when standard output is a closed pipe (128 + SIGPIPE).
+EXIT_BROKEN_PIPE = 141
 
 #: Longest rendering of an offending value inside an error message.
 MAX_VALUE_CHARS = 120
@@ -101,6 +106,26 @@ def exit_status(exc: BaseException) -> int:
         return exc.exit_status
     if isinstance(exc, KeyboardInterrupt):
         return EXIT_INTERRUPTED
+    if isinstance(exc, BrokenPipeError):
+        return EXIT_BROKEN_PIPE
     if isinstance(exc, (MemoryError, OSError)):
         return EXIT_BAD_INPUT
     return 1
+
+
+def message(exc: BaseException) -> str:
+    """The one line a command-line entry point prints for ``exc`` (after ``fluxline: error:``)."""
+    if isinstance(exc, FluxlineError):
+        return short_repr_text(str(exc))
+    if isinstance(exc, MemoryError):
+        return "out of memory (the run needs more than this machine has free)"
+    if isinstance(exc, OSError):
+        where = f"{exc.filename}: " if getattr(exc, "filename", None) else ""
+        return short_repr_text(f"{where}{exc.strerror or exc}")
+    return short_repr_text(f"{type(exc).__name__}: {exc}")
+
+
+def short_repr_text(text: str, limit: int = 4 * MAX_VALUE_CHARS) -> str:
+    """One line of at most ``limit`` characters (newlines folded)."""
+    text = " ".join(str(text).split())
+    return text if len(text) <= limit else f"{text[:limit - 20]}… ({len(text):,} characters)"

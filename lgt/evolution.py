@@ -38,6 +38,7 @@ from circuits.blas_threads import single_threaded_blas
 from lgt.observables import OBSERVABLES, Observer
 from lgt.resources import (CHUNK_BYTES, available_memory, check_resources, count_physical_states,  # noqa: F401
                            estimate_memory)
+from lgt.resolved import EvolutionConfig
 from lgt.results import RunResult, TimeSeries
 from lgt.states import prepare_initial_state, resolve_initial
 
@@ -46,6 +47,8 @@ EVOLUTION_KEYS = ("t_final", "dt", "times", "cut", "observables", "drift_toleran
 #: Propagators: Chebyshev series over blocks of stored times (default), or scipy's expm_multiply.
 METHODS = ("chebyshev", "expm_multiply")
 DEFAULT_DRIFT_TOLERANCE = 1e-8
+#: Most stored times a run may ask for.
+MAX_STORED_TIMES = 1_000_000
 #: Below this many non-zeros H is applied on the calling thread only.
 THREADED_NONZEROS = 200_000
 #: Below this dimension observables are measured inline instead of in a background thread.
@@ -62,6 +65,8 @@ def resolve_times(section: Mapping[str, Any]) -> np.ndarray:
         raw = section["times"]
         if not isinstance(raw, (list, tuple)) or not raw:
             raise ConfigError("evolution.times", raw, "must be a non-empty list of times")
+        if len(raw) > MAX_STORED_TIMES:
+            raise ConfigError("evolution.times", raw, f"more than {MAX_STORED_TIMES:.0e} stored times")
         times = np.array([as_float(t, "evolution.times", minimum=0.0) for t in raw])
         if np.any(np.diff(times) <= 0):
             raise ConfigError("evolution.times", raw, "must be strictly increasing")
@@ -72,16 +77,20 @@ def resolve_times(section: Mapping[str, Any]) -> np.ndarray:
     if "dt" not in section:
         raise ConfigError("evolution.dt", None, "is required with t_final")
     dt = as_float(section["dt"], "evolution.dt", positive=True)
+    if t_final / dt > MAX_STORED_TIMES:
+        raise ConfigError("evolution.dt", dt, f"gives more than {MAX_STORED_TIMES:.0e} stored times")
     steps = int(round(t_final / dt))
     if steps < 1 or abs(steps * dt - t_final) > 1e-9 * t_final:
         raise ConfigError("evolution.dt", dt, f"t_final = {t_final} must be a whole multiple of dt")
-    if steps > 1_000_000:
+    if steps > MAX_STORED_TIMES:
         raise ConfigError("evolution.dt", dt, f"gives {steps} stored times; at most 1e6")
     return np.round(np.arange(steps + 1) * dt, 12)
 
 
-def validate_evolution_config(config: Mapping[str, Any]) -> dict[str, Any]:
+def validate_evolution_config(config: Mapping[str, Any]) -> EvolutionConfig:
     """Resolve ``[model]``, ``[initial]``, ``[evolution]`` for the evolve task (no heavy work).
+
+    A resolved :class:`~lgt.resolved.EvolutionConfig` is returned as is (validated once).
 
     Raises
     ------
@@ -90,9 +99,11 @@ def validate_evolution_config(config: Mapping[str, Any]) -> dict[str, Any]:
     ResourceError
         When the estimated memory exceeds ``memory_limit_gb`` (default: available memory).
     """
-    if "model" not in config:
-        raise ConfigError("model", None, "section is required by the evolve task")
-    params = ModelParams.from_dict(config["model"])
+    if isinstance(config, EvolutionConfig):
+        return config
+    from lgt.modelcheck import checked_model, guard_memory
+
+    params = checked_model(config)
     initial = resolve_initial(config.get("initial"), params)
     section = config.get("evolution")
     if not isinstance(section, Mapping):
@@ -109,22 +120,19 @@ def validate_evolution_config(config: Mapping[str, Any]) -> dict[str, Any]:
     if not isinstance(observables, (list, tuple)) or not observables:
         raise ConfigError("evolution.observables", observables, "must be a non-empty list of names")
     for name in observables:
-        if name not in OBSERVABLES:
+        if not isinstance(name, str) or name not in OBSERVABLES:
             raise ConfigError("evolution.observables", name,
                               f"unknown observable; known: {', '.join(OBSERVABLES)}")
     tol = as_float(section.get("drift_tolerance", DEFAULT_DRIFT_TOLERANCE),
-                   "evolution.drift_tolerance", positive=True)
+                   "evolution.drift_tolerance", positive=True, maximum=1.0)
     method = as_choice(section.get("method", METHODS[0]), "evolution.method", METHODS)
-    resolved_ev: dict[str, Any] = {"times": [float(t) for t in times], "cut": cut,
-                                   "observables": list(dict.fromkeys(observables)),
-                                   "drift_tolerance": tol, "method": method}
-    limit = None
+    gb = None
     if "memory_limit_gb" in section:
         gb = as_float(section["memory_limit_gb"], "evolution.memory_limit_gb", positive=True)
-        resolved_ev["memory_limit_gb"] = gb
-        limit = int(gb * 2 ** 30)
-    check_resources(params, limit)
-    return {"model": params.to_dict(), "initial": initial, "evolution": resolved_ev}
+    guard_memory(params, "evolve", limit_bytes=None if gb is None else int(gb * 2 ** 30),
+                 limit_key="[evolution] memory_limit_gb")
+    return EvolutionConfig(params, initial, tuple(float(t) for t in times), cut,
+                           tuple(dict.fromkeys(observables)), tol, method, gb)
 
 
 # ---------------------------------------------------------------------- propagation
@@ -372,17 +380,6 @@ def _progress_bar(total: int, enabled: bool):
 
     return tqdm(total=total, desc="evolve", unit="t", file=sys.stderr)
 
-
-def _register() -> None:
-    try:
-        from lgt.tasks import register_task
-    except ImportError:  # task registry not available in this checkout
-        return
-    register_task("evolve", validate_evolution_config, run_evolution,
-                  sections=("model", "initial", "evolution"))
-
-
-_register()
 
 __all__ = ["validate_evolution_config", "run_evolution", "propagate", "SchrodingerOperator",
            "count_physical_states", "estimate_memory", "check_resources", "resolve_times",

@@ -1,4 +1,4 @@
-"""Spectroscopy: meson masses, static potential, string tension and breaking distance (DESIGN §3).
+"""Spectroscopy: meson masses, static potential, string tension and breaking distance (docs/conventions.md §3).
 
 Static-charge placement rule (kept fixed so the staggered potential does not zigzag): for a
 distance r (odd, 1 ≤ r ≤ N − 1) the +1 charge sits on the even site
@@ -16,30 +16,43 @@ plateau value after it. The line's crossing of 2 × (lightest meson mass) is als
 
 from __future__ import annotations
 
+import time
 from typing import Any, Mapping, Sequence
 
 import numpy as np
 
 from lgt.basis import PhysicalBasis
-from lgt.config import as_int, check_keys
+from lgt.config import as_int, check_keys, table
 from lgt.errors import ConfigError
 from lgt.hamiltonian import build_hamiltonian
 from lgt.model import ModelParams
+from lgt.resolved import PotentialConfig
+from lgt.results import RunResult
 from lgt.spectrum import gaps, lowest_levels
 
 POTENTIAL_KEYS = ("distances", "masses")
+#: Most meson masses (gaps) a potential run may request.
+MAX_MASSES = 1000
 #: Fraction of the initial slope below which the potential counts as saturated.
 SATURATION_SLOPE = 0.5
 
 
-def static_pair_sites(sites: int, distance: int, key: str = "potential.distances") -> tuple[int, int]:
-    """(even site of the +1 charge, odd site of the −1 charge) for ``distance`` (placement rule above)."""
-    r = as_int(distance, key, minimum=1)
+def static_pair_sites(sites: int, distance: int) -> tuple[int, int]:
+    """(even site of the +1 charge, odd site of the −1 charge) for ``distance`` (placement rule above).
+
+    Raises
+    ------
+    ValueError
+        For r < 1, even r, or r > N − 1.
+    """
+    r = int(distance)
+    if r < 1:
+        raise ValueError(f"distance {r} must be at least 1")
     if r % 2 == 0:
-        raise ConfigError(key, r, "distances must be odd so that the +1 charge stays on an even site "
-                                  "and the −1 charge on an odd site for every r")
+        raise ValueError(f"distance {r}: distances must be odd so that the +1 charge stays on an even "
+                         "site and the −1 charge on an odd site for every r")
     if r > sites - 1:
-        raise ConfigError(key, r, f"does not fit on a chain of {sites} sites (largest is {sites - 1})")
+        raise ValueError(f"distance {r} does not fit on a chain of {sites} sites (largest is {sites - 1})")
     i = 2 * ((sites // 2 - 1 - (r - 1) // 2) // 2)
     i = max(i, 0)
     return i, i + r
@@ -88,19 +101,19 @@ def static_potential(params: ModelParams, distances: Sequence[int], masses: int 
 
     Raises
     ------
-    ConfigError
-        If the model already has static charges, or a distance is even / does not fit.
+    ValueError
+        If the model already has static charges, no distance is given, or a distance is even /
+        does not fit.
     """
     if params.static_charges:
-        raise ConfigError("model.static_charges", params.to_dict()["static_charges"],
-                          "must be empty: the potential places its own +1/−1 pair")
-    if not isinstance(distances, (list, tuple)) or not distances:
-        raise ConfigError("potential.distances", distances, "must be a non-empty list of odd distances")
-    rs = sorted({as_int(r, "potential.distances", minimum=1) for r in distances})
+        raise ValueError("the model must have no static charges: the potential places its own +1/−1 pair")
+    if len(distances) == 0:
+        raise ValueError("give at least one distance")
+    rs = sorted({int(r) for r in distances})
     placements = [static_pair_sites(params.sites, r) for r in rs]
-    masses = as_int(masses, "potential.masses", minimum=1)
+    masses = int(masses)
     e_vacuum = ground_energy(params)
-    V = [ground_energy(params.replace(static_charges=((i, 1), (j, -1)))) - e_vacuum for i, j in placements]
+    V = [ground_energy(m) - e_vacuum for m in pair_models(params, rs)]
     m = meson_masses(params, masses)
     fit = fit_string(rs, V)
     threshold = None
@@ -111,24 +124,79 @@ def static_potential(params: ModelParams, distances: Sequence[int], masses: int 
             "meson_masses": [float(x) for x in m], **fit, "two_meson_crossing": threshold}
 
 
-def resolve_potential(config: Mapping[str, Any], distances: Sequence[int] | None = None) -> dict[str, Any]:
-    """Validate ``[model]`` and ``[potential]`` (``distances``, ``masses``); CLI distances win."""
-    params = ModelParams.from_dict(config.get("model", {}))
-    section = config.get("potential", {})
-    if not isinstance(section, Mapping):
-        raise ConfigError("potential", section, "must be a table")
+def pair_models(params: ModelParams, distances: Sequence[int]) -> list[ModelParams]:
+    """The model with the static +1/−1 pair of each distance (placement rule above)."""
+    return [params.replace(static_charges=((i, 1), (j, -1)))
+            for i, j in (static_pair_sites(params.sites, r) for r in distances)]
+
+
+# ------------------------------------------------------------------------ the potential task
+def resolve_potential(config: Mapping[str, Any], distances: Sequence[int] | None = None) -> PotentialConfig:
+    """Validate ``[model]`` and ``[potential]`` (``distances``: odd r in 1..N−1; ``masses``:
+    1..1000, default 3); distances given on the command line (``--distances``) win. Size guard
+    over the largest pair model.
+
+    Raises
+    ------
+    ConfigError
+        Naming ``model.static_charges``, ``potential.distances`` (or ``--distances``) or
+        ``potential.masses``.
+    """
+    from lgt.modelcheck import MAX_SITES, checked_model, guard_memory
+
+    params = checked_model(config)
+    section = table(config, "potential")
     check_keys(section, POTENTIAL_KEYS, "potential")
+    if params.static_charges:
+        raise ConfigError("model.static_charges", params.to_dict()["static_charges"],
+                          "must be empty: the potential places its own +1/−1 pair")
     key = "--distances" if distances else "potential.distances"
     dist = list(distances) if distances else section.get("distances")
     if dist is None:
         raise ConfigError("potential.distances", None, "give --distances or [potential] distances")
     if not isinstance(dist, (list, tuple)) or not dist:
         raise ConfigError(key, dist, "must be a non-empty list of odd distances")
+    rs = []
     for r in dist:
-        static_pair_sites(params.sites, r, key)
-    masses = as_int(section.get("masses", 3), "potential.masses", minimum=1)
-    return {"model": params.to_dict(), "potential": {"distances": [int(r) for r in dist], "masses": masses}}
+        r = as_int(r, key, minimum=1, maximum=MAX_SITES)
+        try:
+            static_pair_sites(params.sites, r)
+        except ValueError as exc:
+            raise ConfigError(key, r, str(exc).split(": ", 1)[-1]) from None
+        rs.append(r)
+    masses = as_int(section.get("masses", 3), "potential.masses", minimum=1, maximum=MAX_MASSES)
+    rs = sorted(set(rs))
+    guard_memory(params, "potential", stored_vectors=max(20, 2 * masses + 3), variants=pair_models(params, rs))
+    return PotentialConfig(params, tuple(rs), masses)
+
+
+def validate_potential(config: Mapping[str, Any]) -> PotentialConfig:
+    """The potential task's validator: :func:`resolve_potential` with the config's distances."""
+    return resolve_potential(config)
+
+
+def run_potential(resolved: PotentialConfig, progress: bool = False) -> RunResult:
+    """V(r), meson masses and string fit as a RunResult.
+
+    Arrays ``distances``, ``charge_sites`` (r × 2: sites of the +1 and −1 charges),
+    ``potential`` (lattice energy) and ``meson_masses``; attributes ``vacuum_energy``,
+    ``string_tension``, ``intercept``, ``plateau``, ``breaking_distance`` and
+    ``two_meson_crossing`` (NaN where not determined).
+    """
+    t0 = time.perf_counter()
+    out = static_potential(resolved.model, list(resolved.distances), resolved.masses)
+    nan = float("nan")
+    attributes = {k: (nan if out[k] is None else float(out[k]))
+                  for k in ("vacuum_energy", "string_tension", "intercept", "plateau",
+                            "breaking_distance", "two_meson_crossing")}
+    arrays = {"distances": np.asarray(out["distances"], dtype=np.int64),
+              "charge_sites": np.asarray(out["charge_sites"], dtype=np.int64),
+              "potential": np.asarray(out["potential"]),
+              "meson_masses": np.asarray(out["meson_masses"]),
+              "fit_distances": np.asarray(out["fit_distances"], dtype=float)}
+    return RunResult(task="potential", parameters=resolved.to_dict(), arrays=arrays,
+                     attributes=attributes, timings={"potential": time.perf_counter() - t0})
 
 
 __all__ = ["static_pair_sites", "ground_energy", "meson_masses", "fit_string", "static_potential",
-           "resolve_potential"]
+           "pair_models", "resolve_potential", "validate_potential", "run_potential"]

@@ -1,30 +1,38 @@
-"""Registry of runnable tasks (``spectrum``, ``evolve``, ``fit``, ``size``, ...).
+"""The one registry of runnable tasks, and the one table of which config sections each reads.
 
-A task is a pair of functions: ``validate(config) -> resolved config`` (raises
-:class:`~lgt.errors.ConfigError`, does no heavy work) and ``run(resolved) -> RunResult``.
-Modules register their tasks with :func:`register_task` when imported; :data:`TASK_MODULES`
-lists which module provides each task name so that :func:`get_task` imports it on demand
-(worker processes included). To add a task, register it in its module and add one line here.
+A task is ``validate(config) -> typed resolved config`` (:mod:`lgt.resolved`; raises
+:class:`~lgt.errors.ConfigError` / :class:`~lgt.errors.ResourceError`, does no heavy work) and
+``run(resolved, **options) -> RunResult``. Every command-line command that runs physics is a
+thin face over one task (``fluxline spectrum`` → ``spectrum``, …), and ``[sweep] task`` may name
+any of them.
+
+:data:`TASKS` is the table: task name → module, validator, runner and the sections it reads.
+Its modules are imported on first use (worker processes included), so no module registers
+itself on import. **To add a task**: write its validator and runner, add one line to
+:data:`TASKS`. (:func:`register_task` adds a task at run time, for tests and plug-ins.)
+
+Section policy (checked by :meth:`Task.validate` before the task's own validator):
+
+* a section no task reads is refused as unknown (the closest known name is suggested);
+* a section another task reads is refused, naming the tasks that read it, so a config never
+  carries keys that silently do nothing;
+* ``[sweep]`` is read by ``fluxline sweep`` only; there is no ``[output]`` section (give
+  ``--output FILE`` on the command line) and no ``[hardware]`` section in a run config (a
+  hardware profile is its own TOML file, named by ``[variational] hardware_profile``).
 """
 
 from __future__ import annotations
 
+import difflib
 import importlib
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, Callable, Mapping
 
-from lgt.config import as_int, check_keys
+from lgt.config import as_int, check_keys, table
 from lgt.errors import ConfigError
+from lgt.resolved import ResolvedConfig, SpectrumConfig
 from lgt.results import RunResult
-
-#: Task name -> module that calls :func:`register_task` for it when imported.
-TASK_MODULES: dict[str, str] = {
-    "spectrum": "lgt.tasks",
-    "evolve": "lgt.evolution",
-    "fit": "lgt.variational.workflow",
-    "size": "lgt.variational.workflow",
-}
 
 
 @dataclass(frozen=True)
@@ -35,101 +43,181 @@ class Task:
     ----------
     name : str
         Task name used in configs (``[sweep] task``) and stored in results.
-    validate : callable
-        ``validate(config) -> resolved config``; raises ConfigError before any work.
-    run : callable
-        ``run(resolved config) -> RunResult``.
     sections : tuple of str
-        Config sections the task reads (a sweep axis elsewhere is rejected).
+        Config sections the task reads; any other section is refused.
+    required : tuple of str
+        Sections that must be present.
+    module, validator, runner : str
+        Where the functions live (imported on first use).
     """
 
     name: str
-    validate: Callable[[dict], dict]
-    run: Callable[[dict], RunResult]
     sections: tuple[str, ...]
+    required: tuple[str, ...] = ("model",)
+    module: str = ""
+    validator: str = ""
+    runner: str = ""
+    functions: tuple[Callable, Callable] | None = field(default=None, compare=False, repr=False)
+
+    def _functions(self) -> tuple[Callable, Callable]:
+        if self.functions is not None:
+            return self.functions
+        mod = importlib.import_module(self.module)
+        return getattr(mod, self.validator), getattr(mod, self.runner)
+
+    def validate(self, config: Mapping[str, Any]) -> ResolvedConfig:
+        """Check the sections against :attr:`sections`, then run the task's validator (once).
+
+        A resolved configuration of this task is returned as is.
+        """
+        if isinstance(config, ResolvedConfig):
+            return config
+        check_sections(config, self)
+        return self._functions()[0](config)
+
+    def run(self, resolved: Mapping[str, Any], **options: Any) -> RunResult:
+        """Run on a resolved configuration; a plain mapping (e.g. the stored form of a sweep
+        point, in a worker process) is validated first."""
+        if not isinstance(resolved, ResolvedConfig):
+            resolved = self.validate(resolved)
+        return self._functions()[1](resolved, **options)
 
 
-_REGISTRY: dict[str, Task] = {}
+_MODEL_RUN = ("model", "initial", "evolution", "variational")
+
+#: The task table: name → where its validator and runner live and which sections it reads.
+TASKS: dict[str, Task] = {t.name: t for t in (
+    Task("spectrum", ("model", "spectrum"), ("model",), "lgt.tasks", "validate_spectrum", "run_spectrum"),
+    Task("potential", ("model", "potential"), ("model",), "lgt.spectroscopy",
+         "validate_potential", "run_potential"),
+    Task("evolve", ("model", "initial", "evolution"), ("model", "evolution"), "lgt.evolution",
+         "validate_evolution_config", "run_evolution"),
+    Task("fit", _MODEL_RUN, ("model",), "lgt.variational.workflow", "validate_variational_config", "run_fit"),
+    Task("size", _MODEL_RUN, ("model",), "lgt.variational.workflow", "validate_variational_config",
+         "run_size"),
+)}
+
+#: Sections that are not task input, with the reason they are refused in a run config.
+NOT_TASK_SECTIONS = {
+    "sweep": "is read by 'fluxline sweep' only",
+    "output": "is not a config section; give --output FILE on the command line",
+    "hardware": "belongs in a hardware profile file; name it with [variational] hardware_profile",
+}
+
+_EXTRA: dict[str, Task] = {}
 
 
-def register_task(name: str, validate: Callable[[dict], dict], run: Callable[[dict], RunResult],
-                  sections: tuple[str, ...] = ("model", "initial", "evolution", "variational",
-                                               "spectrum", "hardware", "potential")) -> Task:
-    """Register (or replace) the task ``name`` and return it."""
-    task = Task(name, validate, run, tuple(sections))
-    _REGISTRY[name] = task
+def register_task(name: str, validate: Callable[[Mapping], Any], run: Callable[..., RunResult],
+                  sections: tuple[str, ...] = ("model",)) -> Task:
+    """Add (or replace) a run-time task ``name`` (tests, plug-ins) and return it."""
+    task = Task(name, tuple(sections), (), functions=(validate, run))
+    _EXTRA[name] = task
     return task
 
 
 def task_names() -> tuple[str, ...]:
-    """Every task name that can be requested (registered or provided by a known module)."""
-    return tuple(sorted(set(TASK_MODULES) | set(_REGISTRY)))
+    """Every task name that can be requested."""
+    return tuple(sorted(set(TASKS) | set(_EXTRA)))
 
 
 def get_task(name: str, key: str = "task") -> Task:
-    """The task ``name``, importing its module on first use.
+    """The task ``name``; ConfigError naming ``key`` for an unknown name."""
+    task = _EXTRA.get(name) or TASKS.get(name)
+    if task is None:
+        raise ConfigError(key, name, f"unknown task; known tasks are {', '.join(task_names())}")
+    return task
+
+
+def readers(section: str) -> tuple[str, ...]:
+    """Names of the tasks that read ``section``."""
+    return tuple(t.name for t in TASKS.values() if section in t.sections)
+
+
+def known_sections() -> tuple[str, ...]:
+    """Every section some task reads, in table order."""
+    return tuple(dict.fromkeys(s for t in TASKS.values() for s in t.sections))
+
+
+def check_sections(config: Mapping[str, Any], task: Task) -> None:
+    """Refuse sections ``task`` does not read (naming who reads them) and missing required ones.
 
     Raises
     ------
     ConfigError
-        For an unknown name, or when the providing module is not available yet.
+        Keyed by the section name.
     """
-    if name not in _REGISTRY:
-        module = TASK_MODULES.get(name)
-        if module is None:
-            raise ConfigError(key, name, f"unknown task; known tasks are {', '.join(task_names())}")
-        try:
-            importlib.import_module(module)
-        except ModuleNotFoundError as exc:
-            raise ConfigError(key, name, f"task module {module} is not available ({exc})") from None
-        if name not in _REGISTRY:
-            raise ConfigError(key, name, f"module {module} does not register this task")
-    return _REGISTRY[name]
+    if not isinstance(config, Mapping):
+        raise ConfigError("config", config, "must be a table of sections")
+    for name, value in config.items():
+        if name in task.sections:
+            if not isinstance(value, Mapping):
+                raise ConfigError(name, value, "must be a table")
+            continue
+        if name in NOT_TASK_SECTIONS:
+            reason = NOT_TASK_SECTIONS[name]
+        elif readers(name):
+            reason = (f"is not read by the {task.name} task (it reads "
+                      f"{', '.join(f'[{s}]' for s in task.sections)}); [{name}] is read by "
+                      f"{', '.join(readers(name))}")
+        else:
+            close = difflib.get_close_matches(str(name), known_sections() + tuple(NOT_TASK_SECTIONS), n=1)
+            hint = f"did you mean [{close[0]}]? " if close else ""
+            reason = f"unknown section; {hint}the {task.name} task reads " + \
+                     ", ".join(f"[{s}]" for s in task.sections)
+        raise ConfigError(name, _section_summary(value), reason)
+    for name in task.required:
+        if name not in config:
+            raise ConfigError(name, None, f"section is required by the {task.name} task")
+
+
+def _section_summary(value: Any) -> Any:
+    """What an error shows of a refused section: its key names, not its whole content."""
+    return f"[{', '.join(map(str, value))}]" if isinstance(value, Mapping) else value
+
+
+def validate_task(name: str, config: Mapping[str, Any]) -> ResolvedConfig:
+    """``get_task(name).validate(config)``."""
+    return get_task(name).validate(config)
 
 
 # ------------------------------------------------------------------------ the spectrum task
 SPECTRUM_KEYS = ("count",)
+#: Most levels a spectrum run may request (Lanczos on more is a dense problem anyway).
+MAX_SPECTRUM_COUNT = 10_000
 
 
-def validate_spectrum(config: Mapping[str, Any]) -> dict[str, Any]:
-    """Resolve ``[model]`` and ``[spectrum]`` (``count`` ≥ 1, default 6) for the spectrum task."""
-    from lgt.model import ModelParams
+def validate_spectrum(config: Mapping[str, Any]) -> SpectrumConfig:
+    """Resolve ``[model]`` and ``[spectrum]`` (``count`` in 1..10 000, default 6); size guard."""
+    from lgt.modelcheck import checked_model, guard_memory
 
-    if "model" not in config:
-        raise ConfigError("model", None, "section is required by the spectrum task")
-    model = ModelParams.from_dict(config["model"])
-    section = config.get("spectrum", {})
-    if not isinstance(section, Mapping):
-        raise ConfigError("spectrum", section, "must be a table")
+    model = checked_model(config)
+    section = table(config, "spectrum")
     check_keys(section, SPECTRUM_KEYS, "spectrum")
-    count = as_int(section.get("count", 6), "spectrum.count", minimum=1)
-    return {"model": model.to_dict(), "spectrum": {"count": count}}
+    count = as_int(section.get("count", 6), "spectrum.count", minimum=1, maximum=MAX_SPECTRUM_COUNT)
+    guard_memory(model, "spectrum", stored_vectors=max(20, 2 * count + 1))
+    return SpectrumConfig(model, count)
 
 
-def run_spectrum(resolved: Mapping[str, Any]) -> RunResult:
+def run_spectrum(resolved: SpectrumConfig, progress: bool = False) -> RunResult:
     """Lowest ``count`` energies of the physical-subspace Hamiltonian, and gaps E_k − E_0.
 
-    Returns arrays ``energies`` and ``gaps`` (lattice energy) and the attribute ``dimension``
-    (physical-subspace dimension); ``count`` is capped at the dimension.
+    Returns arrays ``energies`` and ``gaps`` (lattice energy) and the attributes ``dimension``
+    (physical-subspace dimension) and ``levels_returned`` (``count`` capped at the dimension).
     """
     import numpy as np
 
     from lgt.basis import PhysicalBasis
     from lgt.hamiltonian import build_hamiltonian
-    from lgt.model import ModelParams
     from lgt.spectrum import lowest_levels
 
     t0 = time.perf_counter()
-    basis = PhysicalBasis(ModelParams.from_dict(resolved["model"]))
+    basis = PhysicalBasis(resolved.model)
     hamiltonian = build_hamiltonian(basis)
     t1 = time.perf_counter()
-    count = min(int(resolved["spectrum"]["count"]), basis.dimension)
+    count = min(resolved.count, basis.dimension)
     energies = np.sort(np.asarray(lowest_levels(hamiltonian, count), dtype=np.float64))
     t2 = time.perf_counter()
-    return RunResult(task="spectrum", parameters=dict(resolved),
+    return RunResult(task="spectrum", parameters=resolved.to_dict(),
                      arrays={"energies": energies, "gaps": energies - energies[0]},
                      attributes={"dimension": int(basis.dimension), "levels_returned": count},
                      timings={"build": t1 - t0, "solve": t2 - t1})
-
-
-register_task("spectrum", validate_spectrum, run_spectrum, sections=("model", "spectrum"))

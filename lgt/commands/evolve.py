@@ -1,4 +1,4 @@
-"""``fluxline evolve CONFIG.toml [--output run.h5] [--json]``: exact quench dynamics."""
+"""``fluxline evolve CONFIG.toml [--output run.h5] [--json] [--quiet]``: the evolve task."""
 
 from __future__ import annotations
 
@@ -7,28 +7,20 @@ import json
 
 import numpy as np
 
-from lgt.commands import config_command
+from lgt.commands import config_command, resolve, write_output
 
 #: Observables the ``--json`` object always carries (added to the run if the config omits them).
 JSON_KEYS = ("particle_density", "electric_field", "loschmidt_echo", "entanglement_entropy", "energy")
 
 
 def _run(args: argparse.Namespace) -> int:
-    from lgt.config import load_config
-    from lgt.evolution import run_evolution, validate_evolution_config
+    from lgt.tasks import get_task
 
-    config = load_config(args.config)
-    resolved = validate_evolution_config(config)  # every ConfigError before any work
+    resolved = resolve(args, "evolve")  # every ConfigError, the size guard and --output before any work
     if args.json:
-        names = resolved["evolution"]["observables"]
-        names += [k for k in JSON_KEYS if k not in names]
-    if args.output:
-        import lgt.io  # noqa: F401  (fail before the run if HDF5 support is missing)
-    result = run_evolution(resolved, progress=not args.quiet)
-    if args.output:
-        from lgt.io import write_run_file
-
-        write_run_file(args.output, result)
+        resolved = resolved.with_observables(JSON_KEYS)
+    result = get_task("evolve").run(resolved, progress=not args.quiet)
+    write_output(args, result)
     if args.json:
         out = {"times": result.series["energy"].times.tolist()}
         out.update({k: np.asarray(result.series[k].values).tolist() for k in JSON_KEYS})
@@ -53,7 +45,6 @@ def _run(args: argparse.Namespace) -> int:
 
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add the ``evolve`` subcommand."""
-    p = config_command(subparsers, "evolve", "exact time evolution of the [initial] state of CONFIG",
-                       "TOML file with [model], [initial] and [evolution]", _run,
-                       output_help="write the run to this HDF5 file")
-    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    config_command(subparsers, "evolve", "exact time evolution of the [initial] state of CONFIG",
+                   "TOML file with [model], [initial] and [evolution]", _run,
+                   output_help="write the run to this HDF5 file")

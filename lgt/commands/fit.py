@@ -1,12 +1,15 @@
-"""``fluxline fit CONFIG.toml [--output fit.h5] [--circuits DIR] [--json]``: fit one depth step by step."""
+"""``fluxline fit CONFIG.toml [--output fit.h5] [--circuits DIR] [--json] [--quiet]``: the fit task.
+
+Exit status 3 when the fit misses its tolerance (everything is still written and printed).
+"""
 
 from __future__ import annotations
 
 import argparse
 import json
 
-from lgt.commands import config_command
-from lgt.config import load_config
+from lgt.commands import check_output_folder, config_command, resolve, write_output
+from lgt.commands.tolerance import fit_meets_tolerance, report
 
 
 def fit_summary(result) -> dict:
@@ -32,20 +35,24 @@ def fit_summary(result) -> dict:
 
 
 def _run(args: argparse.Namespace) -> int:
-    from lgt.variational.workflow import export_circuits, run_fit, validate_variational_config
+    from lgt.tasks import get_task
+    from lgt.variational.workflow import export_circuits
 
-    resolved = validate_variational_config(load_config(args.config))
-    result = run_fit(resolved, progress=not args.json)
-    if args.output:
-        from lgt.io import write_run_file
-
-        write_run_file(args.output, result)
+    if args.circuits:
+        check_output_folder(args.circuits, "--circuits")
+    resolved = resolve(args, "fit")
+    result = get_task("fit").run(resolved, progress=not args.quiet)
+    write_output(args, result)
     if args.circuits:
         export_circuits(resolved, result.arrays["parameters"], args.circuits)
+    settings = resolved["variational"]
     summary = fit_summary(result)
+    summary["tolerance"] = settings["tolerance"]
+    summary["meets_tolerance"] = fit_meets_tolerance(result, settings)
+    status = report(summary["meets_tolerance"], f"the fit of D = {summary['layers']} layers", settings)
     if args.json:
         print(json.dumps(summary))
-        return 0
+        return status
     row = summary["table"][0]
     print(f"{summary['family']} layers D = {row['layers']} ({row['parameters']} parameters)")
     print(f"  max infidelity over the window {row['max_infidelity']:.3e}, final fidelity {row['final_fidelity']:.6f}")
@@ -59,7 +66,7 @@ def _run(args: argparse.Namespace) -> int:
         print(f"  wrote {args.output}")
     if args.circuits:
         print(f"  wrote circuits to {args.circuits}/")
-    return 0
+    return status
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:

@@ -1,30 +1,32 @@
-"""``fluxline size CONFIG.toml [--json]``: least depth meeting the tolerance, budget, Trotter baseline."""
+"""``fluxline size CONFIG.toml [--output F.h5] [--json] [--quiet]``: the size task.
+
+Least depth meeting the tolerance, gate-error budget, Trotter baseline, shots. Exit status 3
+when no depth up to ``max_layers`` meets the tolerance (the table is still printed in full).
+"""
 
 from __future__ import annotations
 
 import argparse
 import json
-import sys
 
-from lgt.commands import config_command
-from lgt.config import load_config
+from lgt.commands import config_command, resolve, stderr_log, write_output
+from lgt.commands.tolerance import report
 
 
 def _run(args: argparse.Namespace) -> int:
-    from lgt.variational.workflow import run_size, validate_variational_config
+    from lgt.tasks import get_task
 
-    resolved = validate_variational_config(load_config(args.config))
-    log = None if args.json else (lambda msg: print(msg, file=sys.stderr))
-    result = run_size(resolved, log=log)
+    resolved = resolve(args, "size")
+    result = get_task("size").run(resolved, log=stderr_log(args))
     summary = json.loads(result.attributes["summary_json"])
-    if args.output:
-        from lgt.io import write_run_file
-
-        write_run_file(args.output, result)
+    write_output(args, result)
+    v = resolved["variational"]
+    summary["tolerance"] = v["tolerance"]
+    summary["meets_tolerance"] = bool(result.attributes.get("meets_tolerance", summary["layers"] is not None))
+    status = report(summary["meets_tolerance"], f"no depth up to max_layers = {v['max_layers']}", v)
     if args.json:
         print(json.dumps(summary))
-        return 0
-    v = resolved["variational"]
+        return status
     print(f"depth sizing: tolerance {v['tolerance']} on {v['criterion']} over [0, {v['t_final']}]")
     for family, part in summary["families"].items():
         print(f"\n{family} layers (native gates per circuit; '<' marks the least depth meeting the tolerance)")
@@ -46,7 +48,7 @@ def _run(args: argparse.Namespace) -> int:
               f"predicted noise fidelity {t['noise_fidelity']:.4f}")
     shots = ", ".join(f"{k} {n}" for k, n in summary["shots"].items())
     print(f"shots for standard error {v['shots_error']}: {shots}")
-    return 0
+    return status
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:

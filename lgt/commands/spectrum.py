@@ -1,47 +1,38 @@
-"""``fluxline spectrum CONFIG.toml [--count K] [--json]``: exact low-lying levels."""
+"""``fluxline spectrum CONFIG.toml [--count K] [--output F.h5] [--json]``: the spectrum task."""
 
 from __future__ import annotations
 
 import argparse
 import json
-import time
 
-from lgt.basis import PhysicalBasis
-from lgt.commands import config_command
-from lgt.config import as_int, check_keys, load_config
-from lgt.hamiltonian import build_hamiltonian
-from lgt.model import ModelParams
-from lgt.spectrum import gaps, lowest_levels
+from lgt.commands import config_command, resolve, write_output
 
 
-def compute_spectrum(config: dict, count: int | None = None) -> dict:
-    """Validate ``[model]`` (and optional ``[spectrum] count``), build H, return a summary dict."""
-    params = ModelParams.from_dict(config.get("model", {}))
-    section = config.get("spectrum", {})
-    check_keys(section, ("count",), "spectrum")
-    if count is None:
-        count = as_int(section.get("count", 6), "spectrum.count", minimum=1)
-    else:
-        count = as_int(count, "--count", minimum=1)
-    t0 = time.perf_counter()
-    basis = PhysicalBasis(params)
-    H = build_hamiltonian(basis)
-    t1 = time.perf_counter()
-    energies = lowest_levels(H, count)
-    t2 = time.perf_counter()
+def spectrum_summary(result) -> dict:
+    """JSON object of a spectrum run: model, dimensions, energies, gaps, timings."""
+    model = result.parameters["model"]
     return {
-        "model": params.to_dict(),
-        "dimension": basis.dimension,
-        "register_dimension": basis.register_dimension,
-        "energies": [float(e) for e in energies],
-        "gaps": [float(g) for g in gaps(energies)],
-        "build_seconds": t1 - t0,
-        "solve_seconds": t2 - t1,
+        "model": model,
+        "dimension": result.attributes["dimension"],
+        "register_dimension": model["levels"] ** (model["sites"] - 1),
+        "energies": result.arrays["energies"].tolist(),
+        "gaps": result.arrays["gaps"].tolist(),
+        "build_seconds": result.timings["build"],
+        "solve_seconds": result.timings["solve"],
     }
 
 
 def _run(args: argparse.Namespace) -> int:
-    summary = compute_spectrum(load_config(args.config), args.count)
+    from lgt.config import as_int
+    from lgt.tasks import MAX_SPECTRUM_COUNT, get_task
+
+    overrides = None
+    if args.count is not None:
+        overrides = {"spectrum": {"count": as_int(args.count, "--count", minimum=1, maximum=MAX_SPECTRUM_COUNT)}}
+    resolved = resolve(args, "spectrum", overrides)
+    result = get_task("spectrum").run(resolved)
+    write_output(args, result)
+    summary = spectrum_summary(result)
     if args.json:
         print(json.dumps(summary))
         return 0
@@ -55,11 +46,14 @@ def _run(args: argparse.Namespace) -> int:
     e0 = summary["energies"][0]
     for k, e in enumerate(summary["energies"]):
         print(f"{k:>5}  {e:>16.10f}  {e - e0:>14.10f}")
+    if args.output:
+        print(f"wrote {args.output}")
     return 0
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add the ``spectrum`` subcommand."""
     p = config_command(subparsers, "spectrum", "exact low-lying levels of the model in CONFIG",
-                       "TOML file with a [model] section", _run)
+                       "TOML file with a [model] section (and optional [spectrum])", _run,
+                       output_help="write the run to this HDF5 file")
     p.add_argument("--count", type=int, default=None, help="number of levels (default: [spectrum] count or 6)")

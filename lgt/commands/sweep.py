@@ -22,7 +22,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="discard an existing output (even of another configuration)")
     p.add_argument("--merge-every", type=float, default=30.0, metavar="SECONDS",
                    help="seconds between merges of finished runs into the main file (default 30)")
-    p.add_argument("--no-progress", action="store_true", help="no progress bar")
+    p.add_argument("--quiet", "--no-progress", dest="no_progress", action="store_true",
+                   help="no progress bar (--no-progress is the older spelling)")
 
 
 def handle(args: argparse.Namespace) -> int:

@@ -5,20 +5,15 @@ from __future__ import annotations
 import argparse
 import sys
 
+from lgt.cli import run_entry
 from lgt.commands.sweep import add_arguments, handle
-from lgt.errors import ConfigError
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Parse arguments and run; ConfigError -> message on stderr, exit status 2."""
+    """Parse arguments and run; errors as for ``fluxline sweep`` (one line, lgt.errors.exit_status)."""
     parser = argparse.ArgumentParser(prog="python -m lgt.sweep")
     add_arguments(parser)
-    args = parser.parse_args(argv)
-    try:
-        return handle(args)
-    except ConfigError as exc:
-        print(f"fluxline: error: {exc}", file=sys.stderr)
-        return 2
+    return run_entry(handle, parser.parse_args(argv))
 
 
 if __name__ == "__main__":

@@ -14,14 +14,17 @@ import itertools
 from dataclasses import dataclass, field
 from typing import Any, Mapping
 
-from lgt.config import KNOWN_SECTIONS, as_choice, check_keys
+from lgt.config import as_choice, check_keys, with_folder
 from lgt.errors import ConfigError, ResourceError
 from lgt.io import canonical_json, flatten
-from lgt.tasks import Task, get_task, task_names
+from lgt.resolved import ResolvedConfig
+from lgt.tasks import Task, get_task, known_sections, task_names
 
 SWEEP_KEYS = ("task", "grid", "zip")
-#: Sections a sweep axis may address.
-SWEEPABLE = tuple(s for s in KNOWN_SECTIONS if s not in ("sweep", "output"))
+#: Sections a sweep axis may address (every section some task reads).
+SWEEPABLE = known_sections()
+#: Most points one sweep may expand to (checked before expanding).
+MAX_POINTS = 1_000_000
 #: Length of the hexadecimal run identifiers.
 ID_LENGTH = 16
 
@@ -37,7 +40,7 @@ class SweepPoint:
     assignments : dict
         Swept dotted key -> value at this point.
     config : dict
-        Resolved configuration returned by the task validator.
+        Plain form (``to_dict()``) of the resolved configuration returned by the task validator.
     run_id : str
         Stable hash of task and resolved configuration; names the HDF5 group.
     """
@@ -104,7 +107,13 @@ def expand_sweep(config: Mapping[str, Any]) -> SweepPlan:
                 raise ConfigError(f'sweep.zip."{key}"', zipped[key],
                                   f"has {n} values but sweep.zip.\"{first}\" has {lengths[first]}; "
                                   "zipped lists must have equal lengths")
-    base = {k: v for k, v in config.items() if k != "sweep"}
+    n_points = 1
+    for values in grid.values():
+        n_points *= len(values)
+    if n_points * (len(next(iter(zipped.values()))) if zipped else 1) > MAX_POINTS:
+        raise ConfigError("sweep.grid", _describe({k: f"{len(v)} values" for k, v in grid.items()}),
+                          f"expands to more than {MAX_POINTS:,} points")
+    base = with_folder({k: v for k, v in config.items() if k != "sweep"}, getattr(config, "folder", None))
     points = _points(base, task, grid, zipped)
     return SweepPlan(task=task.name, grid=grid, zip=zipped, points=points,
                      config_hash=digest(canonical_json([config, list(grid), list(zipped)]), 64),
@@ -165,7 +174,8 @@ def _validated(base: dict, task: Task, assignments: dict[str, Any], index: int,
     for key, value in assignments.items():
         _assign(config, key, copy.deepcopy(value))
     try:
-        return task.validate(config)
+        resolved = task.validate(config)
+        return resolved.to_dict() if isinstance(resolved, ResolvedConfig) else dict(resolved)
     except ConfigError as exc:
         where = f"point {index} ({_describe(assignments)})"
         if exc.key in assignments:

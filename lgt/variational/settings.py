@@ -6,10 +6,8 @@ from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import Any, Mapping
 
-import numpy as np
-
 from circuits.layers import NativeLayerSpec
-from lgt.config import as_choice, as_float, as_int, check_keys
+from lgt.config import as_bool, as_choice, as_float, as_fraction, as_int, check_keys, config_folder, table
 from lgt.errors import ConfigError
 from lgt.variational.ansatz import ANGLE_MODES, FAMILIES
 from lgt.variational.stepper import MODES
@@ -21,6 +19,15 @@ VARIATIONAL_KEYS = ("family", "layers", "angles", "dt", "t_final", "tolerance", 
                     "entangler", "entangler_levels", "trotter_orders", "trotter_max_steps",
                     "compile", "compile_fidelity", "shots_error", "seed", "hardware_profile",
                     "compare_families")
+#: Bounds of our choosing that keep every run finite (documented in docs/variational.md):
+#: depth D, fitted steps T/dt, optimizer iterations, restarts and Trotter steps.
+MAX_LAYERS = 200
+MAX_STEPS = 10_000
+MAX_ITERATIONS = 1_000_000
+MAX_RESTARTS = 100
+MAX_TROTTER_STEPS = 1_000_000
+#: Smallest shot-count standard error (1/ε² shots; 1e-6 is already 1e12 shots).
+MIN_SHOTS_ERROR = 1e-6
 
 
 @dataclass(frozen=True)
@@ -83,16 +90,19 @@ class VariationalSettings:
 
 
 def resolve_variational(config: Mapping[str, Any], levels: int) -> VariationalSettings:
-    """Validate ``config["variational"]`` (``t_final`` falls back to ``[evolution] t_final``)."""
-    section = config.get("variational", {})
-    if not isinstance(section, Mapping):
-        raise ConfigError("variational", section, "must be a table")
+    """Validate ``config["variational"]`` (``t_final`` falls back to ``[evolution] t_final``).
+
+    A relative ``hardware_profile`` is resolved against the config file's folder
+    (:func:`lgt.config.config_folder`) and stored as an absolute path; the profile itself is
+    checked by :func:`load_checked_profile`.
+    """
+    section = table(config, "variational")
     check_keys(section, VARIATIONAL_KEYS, "variational")
     p = "variational."
     d = VariationalSettings()
     kw: dict[str, Any] = {}
     kw["family"] = as_choice(section.get("family", d.family), p + "family", FAMILIES)
-    kw["layers"] = as_int(section.get("layers", d.layers), p + "layers", minimum=1)
+    kw["layers"] = as_int(section.get("layers", d.layers), p + "layers", minimum=1, maximum=MAX_LAYERS)
     kw["angles"] = as_choice(section.get("angles", d.angles), p + "angles", ANGLE_MODES)
     kw["dt"] = as_float(section.get("dt", d.dt), p + "dt", positive=True)
     evolution = config.get("evolution", {})
@@ -101,18 +111,22 @@ def resolve_variational(config: Mapping[str, Any], levels: int) -> VariationalSe
         raise ConfigError(p + "t_final", None, "is required (or give [evolution] t_final)")
     kw["t_final"] = as_float(t_final, p + "t_final", positive=True)
     steps = kw["t_final"] / kw["dt"]
-    if abs(steps - round(steps)) > 1e-9 * max(1.0, steps):
+    if steps > MAX_STEPS + 0.5:
+        raise ConfigError(p + "dt", kw["dt"], f"gives {steps:.3g} fitted steps over t_final = "
+                                              f"{kw['t_final']}; at most {MAX_STEPS:,}")
+    if abs(steps - round(steps)) > 1e-9 * max(1.0, steps) or round(steps) < 1:
         raise ConfigError(p + "dt", kw["dt"], f"must divide t_final = {kw['t_final']} into whole steps")
     n_steps = int(round(steps))
     kw["tolerance"] = as_float(section.get("tolerance", d.tolerance), p + "tolerance", positive=True)
     if kw["tolerance"] >= 1:
         raise ConfigError(p + "tolerance", kw["tolerance"], "is an infidelity and must be below 1")
     default_step = kw["tolerance"] / n_steps ** 2
-    kw["step_tolerance"] = as_float(section.get("step_tolerance", default_step), p + "step_tolerance", positive=True)
-    kw["maxiter"] = as_int(section.get("maxiter", d.maxiter), p + "maxiter", minimum=1)
-    kw["restarts"] = as_int(section.get("restarts", d.restarts), p + "restarts", minimum=0)
+    kw["step_tolerance"] = as_fraction(section.get("step_tolerance", default_step), p + "step_tolerance")
+    kw["maxiter"] = as_int(section.get("maxiter", d.maxiter), p + "maxiter", minimum=1, maximum=MAX_ITERATIONS)
+    kw["restarts"] = as_int(section.get("restarts", d.restarts), p + "restarts", minimum=0, maximum=MAX_RESTARTS)
     kw["mode"] = as_choice(section.get("mode", d.mode), p + "mode", MODES)
-    kw["max_layers"] = as_int(section.get("max_layers", d.max_layers), p + "max_layers", minimum=1)
+    kw["max_layers"] = as_int(section.get("max_layers", d.max_layers), p + "max_layers", minimum=1,
+                              maximum=MAX_LAYERS)
     kw["criterion"] = as_choice(section.get("criterion", d.criterion), p + "criterion", CRITERIA)
     kw["observable_tolerance"] = as_float(section.get("observable_tolerance", d.observable_tolerance),
                                           p + "observable_tolerance", positive=True)
@@ -124,27 +138,53 @@ def resolve_variational(config: Mapping[str, Any], levels: int) -> VariationalSe
         raise ConfigError(p + "entangler_levels", lv, f"must be two different levels in 0..{levels - 1}")
     kw["entangler_levels"] = tuple(sorted(lv))
     orders = section.get("trotter_orders", list(d.trotter_orders))
-    if not isinstance(orders, (list, tuple)) or not orders or any(o not in (1, 2) for o in orders):
+    if (not isinstance(orders, (list, tuple)) or not orders
+            or any(isinstance(o, bool) or o not in (1, 2) for o in orders)):
         raise ConfigError(p + "trotter_orders", orders, "must be a non-empty list of 1 and/or 2")
-    kw["trotter_orders"] = tuple(sorted(set(orders)))
+    kw["trotter_orders"] = tuple(sorted({int(o) for o in orders}))
     kw["trotter_max_steps"] = as_int(section.get("trotter_max_steps", d.trotter_max_steps),
-                                     p + "trotter_max_steps", minimum=1)
+                                     p + "trotter_max_steps", minimum=1, maximum=MAX_TROTTER_STEPS)
     for name in ("compile", "compare_families"):
-        flag = section.get(name, getattr(d, name))
-        if not isinstance(flag, bool):
-            raise ConfigError(p + name, flag, "must be true or false")
-        kw[name] = flag
-    cf = as_float(section.get("compile_fidelity", d.compile_fidelity), p + "compile_fidelity", positive=True)
-    if cf >= 1:
-        raise ConfigError(p + "compile_fidelity", cf, "must be below 1")
-    kw["compile_fidelity"] = cf
-    kw["shots_error"] = as_float(section.get("shots_error", d.shots_error), p + "shots_error", positive=True)
-    kw["seed"] = as_int(section.get("seed", d.seed), p + "seed", minimum=0)
+        kw[name] = as_bool(section.get(name, getattr(d, name)), p + name)
+    kw["compile_fidelity"] = as_fraction(section.get("compile_fidelity", d.compile_fidelity),
+                                         p + "compile_fidelity")
+    kw["shots_error"] = as_fraction(section.get("shots_error", d.shots_error), p + "shots_error", closed=True)
+    if kw["shots_error"] < MIN_SHOTS_ERROR:
+        raise ConfigError(p + "shots_error", kw["shots_error"], f"must be at least {MIN_SHOTS_ERROR:g}")
+    kw["seed"] = as_int(section.get("seed", d.seed), p + "seed", minimum=0, maximum=2 ** 32 - 1)
     prof = section.get("hardware_profile")
     if prof is not None:
-        if not isinstance(prof, str) or not Path(prof).is_file():
-            raise ConfigError(p + "hardware_profile", prof, "must name an existing TOML file")
+        if not isinstance(prof, str) or not prof:
+            raise ConfigError(p + "hardware_profile", prof, "must be the path of a TOML file")
+        path = Path(prof).expanduser()
+        if not path.is_absolute():
+            path = config_folder(config) / path
+        if not path.is_file():
+            raise ConfigError(p + "hardware_profile", prof,
+                              f"no such file ({path}; a relative path is taken from the config file's folder)")
+        prof = str(path.resolve())
     kw["hardware_profile"] = prof
-    if not np.isfinite(kw["step_tolerance"]):
-        raise ConfigError(p + "step_tolerance", kw["step_tolerance"], "must be finite")
     return VariationalSettings(**kw)
+
+
+def load_checked_profile(settings: VariationalSettings):
+    """The hardware profile of ``settings`` (the built-in illustrative one when none is named).
+
+    Raises
+    ------
+    ConfigError
+        Keyed ``variational.hardware_profile`` (``→ <profile key>`` when the profile's loader
+        names one) for an unreadable or invalid profile.
+    """
+    from circuits.hardware import load_profile
+
+    try:
+        return load_profile(settings.hardware_profile)
+    except OSError as exc:
+        raise ConfigError("variational.hardware_profile", settings.hardware_profile,
+                          f"cannot be read ({exc.strerror or exc})") from None
+    except ValueError as exc:  # circuits.hardware.ProfileError carries key / value / reason
+        key = getattr(exc, "key", None)
+        name = f"variational.hardware_profile → {key}" if key else "variational.hardware_profile"
+        value = getattr(exc, "value", settings.hardware_profile)
+        raise ConfigError(name, value, getattr(exc, "reason", None) or str(exc)) from None

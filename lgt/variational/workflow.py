@@ -15,10 +15,9 @@ from typing import Any, Mapping
 import numpy as np
 
 from circuits.export import to_dict
-from circuits.hardware import load_profile
 from lgt.basis import PhysicalBasis
-from lgt.config import check_keys
-from lgt.model import ModelParams
+from lgt.config import check_keys, table
+from lgt.resolved import VariationalConfig
 from lgt.results import RunResult, TimeSeries
 from lgt.states import prepare_initial_state, resolve_initial
 from lgt.variational.ansatz import ModelAnsatz, make_ansatz, symmetric_ansatz
@@ -27,33 +26,45 @@ from lgt.variational.native_cost import model_term_costs
 from lgt.variational.settings import resolve_variational
 from lgt.variational.stepper import VariationalTrajectory, fit_trajectory
 
-SECTIONS = ("model", "initial", "evolution", "variational", "output")
 #: Largest register (d^K) on which hardware layers are fitted.
 MAX_HARDWARE_REGISTER = 2_000_000
 
 
-def validate_variational_config(config: Mapping[str, Any]) -> dict[str, Any]:
-    """Validate [model], [initial], [variational] (and [evolution] t_final); return them resolved."""
-    check_keys(config, SECTIONS, "")
-    params = ModelParams.from_dict(config.get("model", {}))
+def validate_variational_config(config: Mapping[str, Any]) -> VariationalConfig:
+    """Validate [model], [initial], [variational] (and [evolution] t_final) and the hardware
+    profile; return them resolved. A resolved :class:`~lgt.resolved.VariationalConfig` is
+    returned as is (validated once).
+
+    ``[evolution]`` is read for ``t_final`` only; its keys are checked against the evolve task's
+    keys so that a typo is caught, and the others are left to ``fluxline evolve``.
+    """
+    if isinstance(config, VariationalConfig):
+        return config
+    from lgt.errors import ConfigError
+    from lgt.evolution import EVOLUTION_KEYS
+    from lgt.modelcheck import checked_model, guard_memory
+    from lgt.variational.settings import load_checked_profile
+
+    if "evolution" in config:
+        check_keys(table(config, "evolution"), EVOLUTION_KEYS, "evolution")
+    params = checked_model(config)
     initial = resolve_initial(config.get("initial"), params)
     settings = resolve_variational(config, params.levels)
     if settings.family == "hardware" and params.levels ** params.n_links > MAX_HARDWARE_REGISTER:
-        from lgt.errors import ConfigError
-
         raise ConfigError("variational.family", "hardware",
                           f"hardware layers run on the full register, {params.levels}^{params.n_links} "
                           "amplitudes is too large; use family = \"symmetric\"")
-    return {"model": params.to_dict(), "initial": initial, "variational": settings.to_dict()}
+    guard_memory(params, "fit/size", stored_vectors=8 + 2 * (settings.n_steps + 1))
+    profile = load_checked_profile(settings)
+    return VariationalConfig(params, initial, settings, profile)
 
 
 def _setup(resolved: Mapping[str, Any]):
-    params = ModelParams.from_dict(resolved["model"])
-    settings = resolve_variational({"variational": resolved["variational"]}, params.levels)
+    resolved = validate_variational_config(resolved)
+    params, settings = resolved.model, resolved.settings
     basis = PhysicalBasis(params)
     psi0 = prepare_initial_state(basis, resolved["initial"])
-    profile = load_profile(settings.hardware_profile)
-    return params, settings, basis, psi0, profile
+    return params, settings, basis, psi0, resolved.profile
 
 
 def _progress(total: int, enabled: bool, desc: str):
@@ -229,15 +240,3 @@ def size_summary(result, costs, family: str, other_family: str, other=None) -> d
                            "compiled_layers": v.layers, "compile_fidelity": v.compile_fidelity}
                        for k, v in costs.items()},
     }
-
-
-def _register() -> None:
-    from lgt.tasks import register_task
-
-    register_task("fit", validate_variational_config, run_fit,
-                  sections=("model", "initial", "evolution", "variational"))
-    register_task("size", validate_variational_config, run_size,
-                  sections=("model", "initial", "evolution", "variational"))
-
-
-_register()
