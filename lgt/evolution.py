@@ -40,7 +40,7 @@ from lgt.resources import (CHUNK_BYTES, available_memory, check_resources, count
                            estimate_memory)
 from lgt.resolved import EvolutionConfig
 from lgt.results import RunResult, TimeSeries
-from lgt.states import prepare_initial_state, resolve_initial
+from lgt.states import prepare_initial_state
 
 EVOLUTION_KEYS = ("t_final", "dt", "times", "cut", "observables", "drift_tolerance", "memory_limit_gb",
                   "method")
@@ -101,10 +101,10 @@ def validate_evolution_config(config: Mapping[str, Any]) -> EvolutionConfig:
     """
     if isinstance(config, EvolutionConfig):
         return config
-    from lgt.modelcheck import checked_model, guard_memory
+    from lgt.modelcheck import checked_initial, checked_model, guard_memory
 
     params = checked_model(config)
-    initial = resolve_initial(config.get("initial"), params)
+    initial = checked_initial(config, params)
     section = config.get("evolution")
     if not isinstance(section, Mapping):
         raise ConfigError("evolution", section, "section (a table with t_final and dt, or times) is required")

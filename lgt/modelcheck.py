@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from typing import Any, Iterable, Mapping
 
-from lgt.config import MAX_MAGNITUDE, as_float, as_int, table
+from lgt.config import MAX_MAGNITUDE, as_float, as_int, check_keys, table
 from lgt.errors import ConfigError, ResourceError
 from lgt.model import ModelParams
 from lgt.resources import available_memory, count_physical_states, estimate_memory
@@ -49,6 +49,16 @@ def checked_model(config: Mapping[str, Any]) -> ModelParams:
     section = table(config, "model")
     check_model_ranges(section)
     return ModelParams.from_dict(section)
+
+
+def checked_initial(config: Mapping[str, Any], params: ModelParams) -> dict[str, Any]:
+    """Canonical ``[initial]`` (:func:`lgt.states.resolve_initial`), after refusing keys no kind
+    reads, so a misspelt ``kind`` is named as such rather than as a key of the default kind."""
+    from lgt.states import _KIND_KEYS, resolve_initial
+
+    section = table(config, "initial")
+    check_keys(section, ("kind", *dict.fromkeys(k for keys in _KIND_KEYS.values() for k in keys)), "initial")
+    return resolve_initial(config.get("initial"), params)
 
 
 def guard_memory(params: ModelParams, task: str, *, stored_vectors: int = 8,

@@ -19,7 +19,7 @@ VARIATIONAL_KEYS = ("family", "layers", "angles", "dt", "t_final", "tolerance", 
                     "entangler", "entangler_levels", "trotter_orders", "trotter_max_steps",
                     "compile", "compile_fidelity", "shots_error", "seed", "hardware_profile",
                     "compare_families")
-#: Bounds of our choosing that keep every run finite (documented in docs/variational.md):
+#: Bounds of our choosing that keep every run finite (documented in the README):
 #: depth D, fitted steps T/dt, optimizer iterations, restarts and Trotter steps.
 MAX_LAYERS = 200
 MAX_STEPS = 10_000

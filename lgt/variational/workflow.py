@@ -19,7 +19,7 @@ from lgt.basis import PhysicalBasis
 from lgt.config import check_keys, table
 from lgt.resolved import VariationalConfig
 from lgt.results import RunResult, TimeSeries
-from lgt.states import prepare_initial_state, resolve_initial
+from lgt.states import prepare_initial_state
 from lgt.variational.ansatz import ModelAnsatz, make_ansatz, symmetric_ansatz
 from lgt.variational.comparison import compare_to_exact, make_observer
 from lgt.variational.native_cost import model_term_costs
@@ -42,13 +42,13 @@ def validate_variational_config(config: Mapping[str, Any]) -> VariationalConfig:
         return config
     from lgt.errors import ConfigError
     from lgt.evolution import EVOLUTION_KEYS
-    from lgt.modelcheck import checked_model, guard_memory
+    from lgt.modelcheck import checked_initial, checked_model, guard_memory
     from lgt.variational.settings import load_checked_profile
 
     if "evolution" in config:
         check_keys(table(config, "evolution"), EVOLUTION_KEYS, "evolution")
     params = checked_model(config)
-    initial = resolve_initial(config.get("initial"), params)
+    initial = checked_initial(config, params)
     settings = resolve_variational(config, params.levels)
     if settings.family == "hardware" and params.levels ** params.n_links > MAX_HARDWARE_REGISTER:
         raise ConfigError("variational.family", "hardware",
