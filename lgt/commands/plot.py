@@ -7,24 +7,24 @@ from pathlib import Path
 
 
 def _read(path: str, key: str):
-    from lgt.errors import ConfigError
+    from lgt.errors import InputError
     from lgt.io import read_run_file
 
     if not Path(path).is_file():
-        raise ConfigError(key, path, "file not found")
+        raise InputError(f"{key} {path}", "file not found")
     try:
         return read_run_file(path)
     except (OSError, ValueError, KeyError) as exc:
-        raise ConfigError(key, path, f"cannot be read as a Fluxline run file ({exc})") from None
+        raise InputError(f"{key} {path}", f"cannot be read as a Fluxline run file ({exc})") from None
 
 
 def _run(args: argparse.Namespace) -> int:
-    from lgt.errors import ConfigError
+    from lgt.errors import InputError
     from lgt.plots import plot_run
 
     result = _read(args.run, "run")
     if not result.series:
-        raise ConfigError("run", args.run, "holds no time series to plot")
+        raise InputError(f"run {args.run}", "holds no time series to plot (a spectrum, potential or size file?)")
     overlay = _read(args.overlay, "--overlay") if args.overlay else None
     outdir = Path(args.outdir) if args.outdir else Path(args.run).with_suffix("")
     for path in plot_run(result, outdir, overlay):
