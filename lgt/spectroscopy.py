@@ -171,8 +171,9 @@ def resolve_potential(config: Mapping[str, Any], distances: Sequence[int] | None
 
 
 def validate_potential(config: Mapping[str, Any]) -> PotentialConfig:
-    """The potential task's validator: :func:`resolve_potential` with the config's distances."""
-    return resolve_potential(config)
+    """The potential task's validator: :func:`resolve_potential` with the config's distances
+    (a resolved :class:`PotentialConfig` is returned as is)."""
+    return config if isinstance(config, PotentialConfig) else resolve_potential(config)
 
 
 def run_potential(resolved: PotentialConfig, progress: bool = False) -> RunResult:

@@ -68,10 +68,9 @@ class Task:
     def validate(self, config: Mapping[str, Any]) -> ResolvedConfig:
         """Check the sections against :attr:`sections`, then run the task's validator (once).
 
-        A resolved configuration of this task is returned as is.
+        Each validator returns a resolved configuration of its own task as is; one of another
+        task is refused by the section check.
         """
-        if isinstance(config, ResolvedConfig):
-            return config
         check_sections(config, self)
         return self._functions()[0](config)
 
@@ -188,6 +187,8 @@ MAX_SPECTRUM_COUNT = 10_000
 
 def validate_spectrum(config: Mapping[str, Any]) -> SpectrumConfig:
     """Resolve ``[model]`` and ``[spectrum]`` (``count`` in 1..10 000, default 6); size guard."""
+    if isinstance(config, SpectrumConfig):
+        return config
     from lgt.modelcheck import checked_model, guard_memory
 
     model = checked_model(config)

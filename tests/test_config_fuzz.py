@@ -234,3 +234,33 @@ def test_valid_base_config_round_trips(command):
     assert json.loads(canonical_json(plain)) == plain
     assert task.validate(plain) == resolved
     assert task.validate(json.loads(json.dumps(plain))).to_dict() == plain
+
+
+@FUZZ
+@given(mass=st.floats(-5, 5), theta=st.floats(-7, 7), sites=st.sampled_from([4, 6]),
+       count=st.integers(1, 20), link=st.sampled_from(["truncated", "quantum-link"]))
+def test_resolved_configs_round_trip_and_keep_their_identity(mass, theta, sites, count, link):
+    """validate(to_dict(validate(c))) == validate(c), and the sweep run identity of both agree."""
+    from lgt.sweep.plan import run_identity
+    from lgt.tasks import get_task
+
+    model = {"sites": sites, "mass": mass, "theta": theta, "link": link,
+             "levels": 3 if link == "truncated" else 2}
+    for name, config in (("spectrum", {"model": model, "spectrum": {"count": count}}),
+                         ("potential", {"model": model, "potential": {"distances": [1, 3], "masses": 2}}),
+                         ("evolve", {"model": model, "evolution": {"t_final": 0.1 * count, "dt": 0.1}})):
+        task = get_task(name)
+        resolved = task.validate(config)
+        again = task.validate(resolved.to_dict())
+        assert again == resolved and task.validate(resolved) is resolved
+        assert run_identity(name, again.to_dict()) == run_identity(name, resolved.to_dict())
+
+
+def test_a_resolved_config_of_another_task_is_refused():
+    from lgt.errors import ConfigError
+    from lgt.tasks import get_task
+
+    spectrum = get_task("spectrum").validate({"model": MODEL})
+    with pytest.raises(ConfigError) as info:
+        get_task("evolve").validate(spectrum)
+    assert info.value.key == "spectrum"
