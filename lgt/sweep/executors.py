@@ -104,7 +104,10 @@ class DaskRunner(Executor):
         if client is not None:
             self.client = client
         elif scheduler is not None:
-            self.client = Client(scheduler)
+            try:
+                self.client = Client(scheduler)
+            except (OSError, ValueError) as exc:  # unreachable or malformed address: one line, exit 2
+                raise ConfigError("--scheduler", scheduler, f"cannot connect ({exc})") from None
         else:
             key = "distributed.nanny.pre-spawn-environ"
             environ = {**dask.config.get(key, default={}), **single_thread_environ()}
