@@ -63,8 +63,11 @@ def checked_initial(config: Mapping[str, Any], params: ModelParams) -> dict[str,
 
 def guard_memory(params: ModelParams, task: str, *, stored_vectors: int = 8,
                  limit_bytes: int | None = None, variants: Iterable[ModelParams] = (),
-                 limit_key: str | None = None) -> tuple[int, int]:
+                 limit_key: str | None = None, extra_bytes: int = 0) -> tuple[int, int]:
     """(physical dimension, estimated peak bytes) of the largest of ``params`` and ``variants``.
+
+    The estimate is :func:`lgt.resources.estimate_memory` with ``stored_vectors`` state vectors
+    of the physical subspace, plus ``extra_bytes`` (e.g. register-space vectors).
 
     Raises
     ------
@@ -79,7 +82,7 @@ def guard_memory(params: ModelParams, task: str, *, stored_vectors: int = 8,
     if empty:
         raise ConfigError("model.static_charges", empty[0].to_dict()["static_charges"],
                           f"leaves no state obeying Gauss's law in the window of d = {params.levels} levels")
-    need = estimate_memory(largest, dim, stored_vectors)
+    need = estimate_memory(largest, dim, stored_vectors) + int(extra_bytes)
     limit = available_memory() if limit_bytes is None else limit_bytes
     if need > limit:
         hint = f"; set {limit_key} to override" if limit_key else ""

@@ -54,7 +54,9 @@ def validate_variational_config(config: Mapping[str, Any]) -> VariationalConfig:
         raise ConfigError("variational.family", "hardware",
                           f"hardware layers run on the full register, {params.levels}^{params.n_links} "
                           "amplitudes is too large; use family = \"symmetric\"")
-    guard_memory(params, "fit/size", stored_vectors=8 + 2 * (settings.n_steps + 1))
+    states = 2 * (settings.n_steps + 1)  # fitted and exact state of every step are kept
+    register = params.levels ** params.n_links if settings.family == "hardware" else 0
+    guard_memory(params, "fit/size", stored_vectors=8 + states, extra_bytes=16 * register * (states + 8))
     profile = load_checked_profile(settings)
     return VariationalConfig(params, initial, settings, profile)
 
