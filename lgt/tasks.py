@@ -174,11 +174,6 @@ def _section_summary(value: Any) -> Any:
     return f"[{', '.join(map(str, value))}]" if isinstance(value, Mapping) else value
 
 
-def validate_task(name: str, config: Mapping[str, Any]) -> ResolvedConfig:
-    """``get_task(name).validate(config)``."""
-    return get_task(name).validate(config)
-
-
 # ------------------------------------------------------------------------ the spectrum task
 SPECTRUM_KEYS = ("count",)
 #: Most levels a spectrum run may request (Lanczos on more is a dense problem anyway).
