@@ -17,7 +17,7 @@ plateau value after it. The line's crossing of 2 × (lightest meson mass) is als
 from __future__ import annotations
 
 import time
-from typing import Any, Mapping, Sequence
+from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 
@@ -96,8 +96,11 @@ def fit_string(distances: Sequence[int], potential: Sequence[float]) -> dict[str
             "plateau": plateau, "breaking_distance": breaking}
 
 
-def static_potential(params: ModelParams, distances: Sequence[int], masses: int = 3) -> dict[str, Any]:
+def static_potential(params: ModelParams, distances: Sequence[int], masses: int = 3,
+                     progress: Callable[[], None] | None = None) -> dict[str, Any]:
     """V(r) for each distance, meson masses, string tension and breaking-distance estimates.
+
+    ``progress`` is called after each of the len(distances) + 2 ground-state / spectrum solves.
 
     Raises
     ------
@@ -112,9 +115,15 @@ def static_potential(params: ModelParams, distances: Sequence[int], masses: int 
     rs = sorted({int(r) for r in distances})
     placements = [static_pair_sites(params.sites, r) for r in rs]
     masses = int(masses)
+    tick = progress or (lambda: None)
     e_vacuum = ground_energy(params)
-    V = [ground_energy(m) - e_vacuum for m in pair_models(params, rs)]
+    tick()
+    V = []
+    for model in pair_models(params, rs):
+        V.append(ground_energy(model) - e_vacuum)
+        tick()
     m = meson_masses(params, masses)
+    tick()
     fit = fit_string(rs, V)
     threshold = None
     if fit["string_tension"] and fit["string_tension"] > 0 and m.size:
@@ -177,7 +186,7 @@ def validate_potential(config: Mapping[str, Any]) -> PotentialConfig:
 
 
 def run_potential(resolved: PotentialConfig, progress: bool = False) -> RunResult:
-    """V(r), meson masses and string fit as a RunResult.
+    """V(r), meson masses and string fit as a RunResult (``progress``: a bar on stderr).
 
     Arrays ``distances``, ``charge_sites`` (r × 2: sites of the +1 and −1 charges),
     ``potential`` (lattice energy) and ``meson_masses``; attributes ``vacuum_energy``,
@@ -185,7 +194,19 @@ def run_potential(resolved: PotentialConfig, progress: bool = False) -> RunResul
     ``two_meson_crossing`` (NaN where not determined).
     """
     t0 = time.perf_counter()
-    out = static_potential(resolved.model, list(resolved.distances), resolved.masses)
+    bar = None
+    if progress:
+        import sys
+
+        from tqdm import tqdm
+
+        bar = tqdm(total=len(resolved.distances) + 2, desc="potential", unit="solve", file=sys.stderr)
+    try:
+        out = static_potential(resolved.model, list(resolved.distances), resolved.masses,
+                               progress=bar.update if bar is not None else None)
+    finally:
+        if bar is not None:
+            bar.close()
     nan = float("nan")
     attributes = {k: (nan if out[k] is None else float(out[k]))
                   for k in ("vacuum_energy", "string_tension", "intercept", "plateau",

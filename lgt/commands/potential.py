@@ -34,7 +34,7 @@ def _run(args: argparse.Namespace) -> int:
         if overrides and exc.key == "potential.distances":  # name the option the user typed
             raise ConfigError("--distances", exc.value, exc.reason) from None
         raise
-    result = get_task("potential").run(resolved)
+    result = get_task("potential").run(resolved, progress=not args.quiet)
     write_output(args, result)
     out = potential_summary(result)
     if args.json:
