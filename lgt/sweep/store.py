@@ -30,9 +30,12 @@ from typing import Any, Callable, Mapping
 
 import h5py
 
-from lgt.errors import ConfigError
-from lgt.io import (STATUS_COMPLETE, atomic_h5, canonical_json, run_status, write_h5md_root,
-                    write_run_group)
+from lgt.errors import ConfigError, InputError
+from lgt.files import (atomic_h5, check_output_path, open_no_follow, real_directory,
+                       resolve_output)
+from lgt.hashing import canonical_json
+from lgt.io import (LAYOUT_VERSION, STATUS_COMPLETE, check_layout, check_run, run_status,
+                    set_attr, write_h5md_root, write_run_group)
 from lgt.results import RunResult
 from lgt.sweep.plan import SweepPlan, SweepPoint
 
@@ -42,9 +45,15 @@ MERGE_COST_FACTOR = 20.0
 STATUS_FAILED = "failed"
 
 
+def usable(group: h5py.Group) -> bool:
+    """A run counts as done only if its status is ``complete`` and its structure reads."""
+    return check_run(group) is None and run_status(group) == STATUS_COMPLETE
+
+
 def parts_dir(path: str | Path) -> Path:
-    """Sidecar directory holding finished runs not yet merged into ``path``."""
-    path = Path(path)
+    """Sidecar directory holding finished runs not yet merged into ``path`` (symlinks of
+    ``path`` resolved)."""
+    path = resolve_output(path)
     return path.with_name(path.name + ".parts")
 
 
@@ -61,7 +70,7 @@ class SweepStore:
 
     def __init__(self, path: str | Path, plan: SweepPlan, overwrite: bool = False,
                  merge_every: float = 30.0) -> None:
-        self.path = Path(path)
+        self.path = resolve_output(path)  # a symlinked output is followed on purpose
         self.parts = parts_dir(self.path)
         self.lock_path = self.path.with_name(self.path.name + ".lock")
         self.plan = plan
@@ -74,21 +83,20 @@ class SweepStore:
     # ------------------------------------------------------------------ lifecycle
     def open(self) -> set[str]:
         """Lock, check or create the output, merge leftovers; return the complete run ids."""
-        if not self.path.parent.is_dir():
-            raise ConfigError("--output", str(self.path), "its directory does not exist")
+        check_output_path(self.path, overwrite=True)  # folder, directory, writability
         self._lock()
         try:
             if self.overwrite:
                 self.path.unlink(missing_ok=True)
                 shutil.rmtree(self.parts, ignore_errors=True)
             self._remove_stale_temporaries()
-            self.parts.mkdir(exist_ok=True)
+            real_directory(self.parts)
             if self.path.exists():
                 self._check_identity(self.path)
             else:
                 self._create_main()
             for part in self._part_files():
-                self._check_identity(part)
+                self._check_part(part)
             self.merge(drop_incomplete=True)
             return self.complete_ids()
         except BaseException:
@@ -133,7 +141,7 @@ class SweepStore:
                 "sweep_assignments": canonical_json(point.assignments), **info}
 
     def _write_part(self, run_id: str, fill: Callable[[h5py.Group], None]) -> None:
-        with atomic_h5(self.parts / f"{run_id}.h5") as f:
+        with atomic_h5(self.parts / f"{run_id}.h5", follow=False) as f:
             write_h5md_root(f)
             f.attrs["sweep_config_hash"] = self.plan.config_hash
             fill(f.create_group("runs").create_group(run_id))
@@ -156,10 +164,11 @@ class SweepStore:
         if not parts and not (drop_incomplete and self._has_incomplete()):
             return 0
         started = time.perf_counter()
-        with atomic_h5(self.path, copy_from=self.path) as f:
+        with atomic_h5(self.path, copy_from=self.path, follow=False) as f:
+            f.attrs["fluxline_layout"] = LAYOUT_VERSION  # layout 2 reads layout 1 groups
             runs = f.require_group("runs")
             if drop_incomplete:
-                for run_id in [r for r in runs if run_status(runs[r]) != STATUS_COMPLETE]:
+                for run_id in [r for r in runs if not usable(runs[r])]:
                     del runs[run_id]
             for part in parts:
                 self._merge_part(part, runs)
@@ -182,35 +191,40 @@ class SweepStore:
 
     def _has_incomplete(self) -> bool:
         with h5py.File(self.path, "r") as f:
-            return any(run_status(g) != STATUS_COMPLETE for g in f.get("runs", {}).values())
+            return any(not usable(g) for g in f.get("runs", {}).values())
 
     def complete_ids(self) -> set[str]:
-        """Run ids with status ``complete`` in the main file or in part files."""
+        """Run ids complete (and readable) in the main file or in part files."""
         done: set[str] = set()
         for file in [self.path, *self._part_files()]:
             with h5py.File(file, "r") as f:
-                done.update(r for r, g in f.get("runs", {}).items()
-                            if run_status(g) == STATUS_COMPLETE)
+                done.update(r for r, g in f.get("runs", {}).items() if usable(g))
         return done
 
     # ------------------------------------------------------------------ identity
     def _create_main(self) -> None:
         plan = self.plan
-        with atomic_h5(self.path) as f:
+        with atomic_h5(self.path, follow=False) as f:
             write_h5md_root(f)
-            f.attrs.update({
+            for key, value in {
                 "sweep_config_hash": plan.config_hash, "sweep_config": plan.config_json,
                 "sweep_task": plan.task, "sweep_points": len(plan.points),
                 "sweep_grid": canonical_json(list(plan.grid.items())),
                 "sweep_zip": canonical_json(list(plan.zip.items())),
                 "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
-            })
+            }.items():
+                set_attr(f, key, value)
             f.create_group("runs")
 
     def _check_identity(self, file: Path) -> None:
         try:
             with h5py.File(file, "r") as f:
                 found = f.attrs.get("sweep_config_hash")
+                if found is not None:
+                    check_layout(f, str(file))
+        except InputError as exc:
+            raise ConfigError("--output", str(file), f"{exc.reason}; pass --overwrite to "
+                                                     "replace it") from None
         except OSError as exc:
             raise ConfigError("--output", str(file), f"exists but is not a readable HDF5 file "
                                                      f"({exc}); pass --overwrite to replace it") from None
@@ -235,9 +249,26 @@ class SweepStore:
         for tmp in stale:
             tmp.unlink(missing_ok=True)
 
+    def _check_part(self, part: Path) -> None:
+        """A part of another configuration is refused; an unreadable one is set aside as
+        ``<id>.h5.damaged`` (its run is recomputed) with a warning."""
+        try:
+            with h5py.File(part, "r") as f:
+                readable = all(check_run(g) is None for g in f["runs"].values())
+        except (OSError, KeyError, ValueError, RuntimeError):
+            readable = False
+        if readable:
+            self._check_identity(part)
+            return
+        damaged = part.with_name(part.name + ".damaged")
+        os.replace(part, damaged)
+        warnings.warn(f"part file {part} is damaged; moved to {damaged.name}, its run will be "
+                      "recomputed", stacklevel=3)
+
     def _lock(self) -> None:
         while True:
-            fd = os.open(self.lock_path, os.O_RDWR | os.O_CREAT, 0o644)
+            # O_NOFOLLOW: a planted OUT.h5.lock symlink must not redirect our write
+            fd = open_no_follow(self.lock_path, os.O_RDWR | os.O_CREAT, 0o644)
             try:
                 fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
             except BlockingIOError:

@@ -1,0 +1,239 @@
+"""Safe file writing: output-path checks, atomic HDF5 replacement, no symlink surprises.
+
+* :func:`check_output_path` checks an ``--output`` *before* any computation (missing folder,
+  a directory, an unwritable or read-only folder, an existing file without ``--overwrite``).
+  A symbolic link as output is **followed on purpose**: the file it points to is written
+  (atomically, in the target's folder) and the link is kept.
+* :func:`atomic_h5` writes a temporary file beside the target and moves it into place with
+  :func:`os.replace`; the temporary is created with ``O_EXCL`` (never through a planted link),
+  and ``os.replace`` replaces a link rather than writing through it.
+* Temporaries left by killed processes (``.NAME.<host>-<pid>.XXXX.tmp``) are removed by the
+  next write to the same path when their process is gone.
+* Resource failures (disk full, quota, permission denied, read-only file system, out of
+  memory) become :class:`~lgt.errors.ResourceError` naming the path; the previous file is kept.
+"""
+
+from __future__ import annotations
+
+import errno
+import os
+import re
+import shutil
+import socket
+import stat
+import tempfile
+import time
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Iterator
+
+import h5py
+
+from lgt.errors import InputError, ResourceError
+
+#: errno values that mean "a resource ran out or is not granted" (→ ResourceError).
+RESOURCE_ERRNOS = {errno.ENOSPC, errno.EDQUOT, errno.EACCES, errno.EPERM, errno.EROFS,
+                   errno.EFBIG, errno.ENOMEM}
+#: Temporaries of the old naming scheme (no pid) older than this are removed (seconds).
+STALE_AGE = 3600.0
+#: HDF5 format bounds for new files: v110 object headers carry metadata checksums.
+LIBVER = ("v110", "latest")
+
+
+def resolve_output(path: str | Path) -> Path:
+    """``path`` with symbolic links resolved (the file a link points to is the one written)."""
+    return Path(os.path.realpath(path))
+
+
+def check_output_path(path: str | Path, overwrite: bool = False) -> Path:
+    """Check before any work that ``path`` can be written; return the path to write.
+
+    Raises
+    ------
+    InputError
+        (``what = "--output"``) the folder is missing, the path is a directory, the file exists
+        and ``overwrite`` is false, or the folder is not writable (permission denied or a
+        read-only file system; checked by creating and removing a probe file).
+    """
+    given = Path(path)
+    target = resolve_output(given)
+    shown = str(given) if target == given.absolute() else f"{given} (a link to {target})"
+    if target.is_dir():
+        raise InputError("--output", f"{shown} is a directory; give a file name")
+    folder = target.parent
+    if not folder.exists():
+        raise InputError("--output", f"{shown}: folder {folder} does not exist")
+    if not folder.is_dir():
+        raise InputError("--output", f"{shown}: {folder} is not a folder")
+    if target.exists() and not overwrite:
+        raise InputError("--output", f"{shown} exists; pass --overwrite to replace it")
+    try:
+        fd, probe = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".probe", dir=folder)
+        os.close(fd)
+        os.unlink(probe)
+    except OSError as exc:
+        raise InputError("--output", f"{shown}: folder {folder} is not writable "
+                                     f"({os.strerror(exc.errno) if exc.errno else exc})") from None
+    return target
+
+
+def resource_error(path: str | Path, exc: BaseException, kept: bool = True) -> ResourceError | None:
+    """The ResourceError for a failed write of ``path``, or None if ``exc`` is not one."""
+    if isinstance(exc, MemoryError):
+        reason = "out of memory"
+    else:
+        code = _errno_of(exc)
+        if code not in RESOURCE_ERRNOS:
+            return None
+        reason = os.strerror(code)
+    after = "; the previous file is unchanged" if kept else ""
+    return ResourceError(f"cannot write {path}: {reason}{after}")
+
+
+def _errno_of(exc: BaseException) -> int | None:
+    """errno of an OSError, also when h5py only mentions it in the message."""
+    if not isinstance(exc, OSError):
+        return None
+    if exc.errno:
+        return exc.errno
+    found = re.search(r"errno = (\d+)", str(exc))
+    return int(found.group(1)) if found else None
+
+
+def _tmp_prefix(path: Path) -> str:
+    return f".{path.name}.{socket.gethostname()}-{os.getpid()}."
+
+
+def remove_stale_temporaries(path: str | Path) -> list[Path]:
+    """Delete temporaries of ``path`` whose writing process (on this host) no longer runs."""
+    path = Path(path)
+    host = socket.gethostname()
+    pattern = re.compile(re.escape(f".{path.name}.") + r"(?:(?P<host>.+)-(?P<pid>\d+)\.)?[^.]+\.tmp")
+    removed = []
+    try:
+        candidates = list(path.parent.glob(f".{path.name}.*.tmp"))
+    except OSError:
+        return removed
+    for tmp in candidates:
+        found = pattern.fullmatch(tmp.name)
+        if found is None:
+            continue
+        if found["pid"] is not None:
+            if found["host"] != host or _alive(int(found["pid"])):
+                continue
+        else:
+            try:
+                if time.time() - tmp.lstat().st_mtime < STALE_AGE:
+                    continue
+            except OSError:
+                continue
+        try:
+            tmp.unlink()
+            removed.append(tmp)
+        except OSError:
+            pass
+    return removed
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+@contextmanager
+def atomic_h5(path: str | Path, copy_from: str | Path | None = None,
+              follow: bool = True) -> Iterator[h5py.File]:
+    """Open a temporary HDF5 file that replaces ``path`` only if the block succeeds.
+
+    The temporary file lives in the target's directory (optionally starting as a byte copy of
+    ``copy_from``); on success it is closed, fsynced and moved over ``path`` with
+    :func:`os.replace` (atomic on POSIX), and the directory is fsynced. On any exception, or if
+    the process is killed, ``path`` is untouched. A symbolic link at ``path`` is followed (its
+    target is replaced) unless ``follow`` is false (then the link itself is replaced; sweep
+    parts use this so a planted link cannot redirect the write). Resource failures raise
+    :class:`~lgt.errors.ResourceError`.
+    """
+    path = resolve_output(path) if follow else Path(path)
+    remove_stale_temporaries(path)
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=_tmp_prefix(path), suffix=".tmp", dir=path.parent)
+    except OSError as exc:
+        raise (resource_error(path, exc) or exc) from None
+    os.close(fd)
+    try:
+        try:
+            os.chmod(tmp, _file_mode(path))
+            if copy_from is not None:
+                shutil.copyfile(copy_from, tmp)
+            with h5py.File(tmp, "r+" if copy_from is not None else "w", libver=LIBVER) as f:
+                yield f
+            _fsync(tmp)
+            os.replace(tmp, path)
+            _fsync(path.parent)  # make the rename itself durable (power loss)
+        except (OSError, MemoryError) as exc:
+            error = resource_error(path, exc)
+            if error is None:
+                raise
+            raise error from None
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+
+
+def _file_mode(path: Path) -> int:
+    """Mode of the existing ``path``, else the default for new files under the umask."""
+    try:
+        return path.stat().st_mode & 0o777
+    except FileNotFoundError:
+        umask = os.umask(0)
+        os.umask(umask)
+        return 0o666 & ~umask
+
+
+def _fsync(path: str | Path) -> None:
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def open_no_follow(path: str | Path, flags: int, mode: int = 0o644) -> int:
+    """``os.open`` that refuses a symbolic link or a non-regular file at ``path``.
+
+    Raises
+    ------
+    InputError
+        ``path`` is a symbolic link (``O_NOFOLLOW``) or not a regular file.
+    """
+    try:
+        fd = os.open(path, flags | os.O_NOFOLLOW | os.O_CLOEXEC, mode)
+    except OSError as exc:
+        if exc.errno == errno.ELOOP:
+            raise InputError(str(path), "is a symbolic link; refusing to follow it "
+                                        "(remove it if you did not create it)") from None
+        raise (resource_error(path, exc, kept=False) or exc) from None
+    if not stat.S_ISREG(os.fstat(fd).st_mode):
+        os.close(fd)
+        raise InputError(str(path), "is not a regular file")
+    return fd
+
+
+def real_directory(path: str | Path) -> Path:
+    """Create the folder ``path`` if needed; refuse a symbolic link or a non-folder there."""
+    path = Path(path)
+    if path.is_symlink():
+        raise InputError(str(path), "is a symbolic link; refusing to write through it "
+                                    "(remove it if you did not create it)")
+    try:
+        path.mkdir(exist_ok=True)
+    except FileExistsError:
+        raise InputError(str(path), "exists and is not a folder") from None
+    except OSError as exc:
+        raise (resource_error(path, exc, kept=False) or exc) from None
+    return path
