@@ -7,7 +7,7 @@ import importlib
 import sys
 
 from lgt import __version__
-from lgt.errors import ConfigError, ResourceError
+from lgt.errors import ConfigError, InputError, ResourceError
 
 #: Subcommand modules under ``lgt.commands``; each exposes ``register(subparsers)``.
 COMMAND_MODULES = ("demo", "spectrum", "evolve", "potential", "plot", "fit", "size", "sweep", "runs")
@@ -25,15 +25,18 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: list[str] | None = None) -> int:
     """Entry point; returns the exit status (2 for configuration errors)."""
+    from lgt.signals import describe, status_of, stop_on_signals
+
     args = build_parser().parse_args(argv)
     try:
-        return int(args.func(args) or 0)
-    except (ConfigError, ResourceError) as exc:  # errors by kind: see lgt.errors.exit_status
+        with stop_on_signals():  # SIGTERM/SIGHUP stop like Ctrl-C (exit 143)
+            return int(args.func(args) or 0)
+    except (ConfigError, InputError, ResourceError) as exc:  # errors by kind: see lgt.errors.exit_status
         print(f"fluxline: error: {exc}", file=sys.stderr)
         return 2
-    except KeyboardInterrupt:
-        print("fluxline: interrupted", file=sys.stderr)
-        return 130
+    except KeyboardInterrupt as exc:
+        print(f"fluxline: {describe(exc)}", file=sys.stderr)
+        return status_of(exc)
 
 
 if __name__ == "__main__":  # pragma: no cover

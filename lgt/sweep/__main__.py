@@ -6,7 +6,8 @@ import argparse
 import sys
 
 from lgt.commands.sweep import add_arguments, handle
-from lgt.errors import ConfigError
+from lgt.errors import ConfigError, InputError, ResourceError
+from lgt.signals import describe, status_of, stop_on_signals
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -15,10 +16,14 @@ def main(argv: list[str] | None = None) -> int:
     add_arguments(parser)
     args = parser.parse_args(argv)
     try:
-        return handle(args)
-    except ConfigError as exc:
+        with stop_on_signals():
+            return handle(args)
+    except (ConfigError, InputError, ResourceError) as exc:
         print(f"fluxline: error: {exc}", file=sys.stderr)
         return 2
+    except KeyboardInterrupt as exc:
+        print(f"fluxline: {describe(exc)}", file=sys.stderr)
+        return status_of(exc)
 
 
 if __name__ == "__main__":
