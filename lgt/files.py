@@ -21,11 +21,12 @@ import re
 import shutil
 import socket
 import stat
+import sys
 import tempfile
 import time
 from contextlib import contextmanager
 from pathlib import Path
-from typing import Iterator
+from typing import Any, Iterator
 
 import h5py
 
@@ -79,7 +80,7 @@ def check_output_path(path: str | Path, overwrite: bool = False) -> Path:
 
 def resource_error(path: str | Path, exc: BaseException, kept: bool = True) -> ResourceError | None:
     """The ResourceError for a failed write of ``path``, or None if ``exc`` is not one."""
-    if isinstance(exc, MemoryError):
+    if isinstance(exc, MemoryError) or isinstance(exc.__context__, MemoryError):
         reason = "out of memory"
     else:
         code = _errno_of(exc)
@@ -90,14 +91,35 @@ def resource_error(path: str | Path, exc: BaseException, kept: bool = True) -> R
     return ResourceError(f"cannot write {path}: {reason}{after}")
 
 
-def _errno_of(exc: BaseException) -> int | None:
-    """errno of an OSError, also when h5py only mentions it in the message."""
-    if not isinstance(exc, OSError):
-        return None
-    if exc.errno:
-        return exc.errno
-    found = re.search(r"errno = (\d+)", str(exc))
-    return int(found.group(1)) if found else None
+def _errno_of(exc: BaseException | None) -> int | None:
+    """errno of an OSError, also when h5py only mentions it in the message (h5py raises
+    RuntimeError for failed flushes) or in the error it was handling."""
+    seen = 0
+    while exc is not None and seen < 8:
+        if isinstance(exc, OSError) and exc.errno:
+            return exc.errno
+        if isinstance(exc, (OSError, RuntimeError)):
+            found = re.search(r"errno = (\d+)", str(exc))
+            if found:
+                return int(found.group(1))
+        exc, seen = exc.__cause__ or exc.__context__, seen + 1
+    return None
+
+
+def _quiet_h5py_cleanup() -> None:
+    """After a failed write, h5py's object destructors retry the write and report each
+    failure as an "Exception ignored" traceback; drop those (the error is already raised)."""
+    previous = sys.unraisablehook
+    if getattr(previous, "_fluxline", False):
+        return
+
+    def hook(unraisable: Any) -> None:
+        if "h5py" in str(getattr(unraisable, "object", "")) and isinstance(
+                unraisable.exc_value, (OSError, RuntimeError)):
+            return
+        previous(unraisable)
+    hook._fluxline = True  # type: ignore[attr-defined]
+    sys.unraisablehook = hook
 
 
 def _tmp_prefix(path: Path) -> str:
@@ -146,17 +168,21 @@ def _alive(pid: int) -> bool:
 
 
 @contextmanager
-def atomic_h5(path: str | Path, copy_from: str | Path | None = None,
-              follow: bool = True) -> Iterator[h5py.File]:
+def atomic_h5(path: str | Path, copy_from: str | Path | None = None, follow: bool = True,
+              reserve: int = 0) -> Iterator[h5py.File]:
     """Open a temporary HDF5 file that replaces ``path`` only if the block succeeds.
 
-    The temporary file lives in the target's directory (optionally starting as a byte copy of
-    ``copy_from``); on success it is closed, fsynced and moved over ``path`` with
-    :func:`os.replace` (atomic on POSIX), and the directory is fsynced. On any exception, or if
-    the process is killed, ``path`` is untouched. A symbolic link at ``path`` is followed (its
-    target is replaced) unless ``follow`` is false (then the link itself is replaced; sweep
-    parts use this so a planted link cannot redirect the write). Resource failures raise
-    :class:`~lgt.errors.ResourceError`.
+    A new file is built in memory (HDF5 "core" driver) and its image written to a temporary
+    file beside the target with plain ``os.write`` calls, so a full disk is an ordinary
+    ``ENOSPC`` and never leaves the HDF5 library in a failed state. With ``copy_from`` the
+    temporary starts as a byte copy of that file and is modified on disk; ``reserve`` bytes
+    (the data about to be added) must be free beyond the copy, else the write is refused
+    before it starts. On success the temporary is fsynced and moved over ``path`` with
+    :func:`os.replace` (atomic on POSIX), and the directory is fsynced. On any exception, or
+    if the process is killed, ``path`` is untouched. A symbolic link at ``path`` is followed
+    (its target is replaced) unless ``follow`` is false (then the link itself is replaced;
+    sweep files use this so a planted link cannot redirect the write). Resource failures
+    raise :class:`~lgt.errors.ResourceError`.
     """
     path = resolve_output(path) if follow else Path(path)
     remove_stale_temporaries(path)
@@ -164,25 +190,57 @@ def atomic_h5(path: str | Path, copy_from: str | Path | None = None,
         fd, tmp = tempfile.mkstemp(prefix=_tmp_prefix(path), suffix=".tmp", dir=path.parent)
     except OSError as exc:
         raise (resource_error(path, exc) or exc) from None
-    os.close(fd)
     try:
         try:
-            os.chmod(tmp, _file_mode(path))
-            if copy_from is not None:
+            os.fchmod(fd, _file_mode(path))
+            if copy_from is None:
+                with h5py.File(tmp + ".image", "w", driver="core", backing_store=False,
+                               libver=LIBVER) as f:
+                    yield f
+                    f.flush()
+                    image = f.id.get_file_image()
+                _write_all(fd, image)
+                del image
+            else:
+                os.close(fd)
+                fd = -1
+                _check_free_space(path, Path(copy_from).stat().st_size + reserve)
                 shutil.copyfile(copy_from, tmp)
-            with h5py.File(tmp, "r+" if copy_from is not None else "w", libver=LIBVER) as f:
-                yield f
+                with h5py.File(tmp, "r+", libver=LIBVER) as f:
+                    yield f
             _fsync(tmp)
             os.replace(tmp, path)
             _fsync(path.parent)  # make the rename itself durable (power loss)
-        except (OSError, MemoryError) as exc:
+        except (OSError, RuntimeError, MemoryError) as exc:
             error = resource_error(path, exc)
             if error is None:
                 raise
+            _quiet_h5py_cleanup()
             raise error from None
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
+    finally:
+        if fd >= 0:
+            os.close(fd)
+
+
+def _write_all(fd: int, data: bytes) -> None:
+    view = memoryview(data)
+    while view:
+        view = view[os.write(fd, view):]
+
+
+def _check_free_space(path: Path, needed: int) -> None:
+    """Refuse (ResourceError) a write that needs more than the free space of ``path``'s folder."""
+    try:
+        free = shutil.disk_usage(path.parent).free
+    except OSError:
+        return
+    if needed > free:
+        raise ResourceError(f"cannot write {path}: {os.strerror(errno.ENOSPC)} (needs about "
+                            f"{needed / 2**20:.1f} MiB, {free / 2**20:.1f} MiB free); the "
+                            "previous file is unchanged")
 
 
 def _file_mode(path: Path) -> int:

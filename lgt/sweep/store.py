@@ -164,7 +164,8 @@ class SweepStore:
         if not parts and not (drop_incomplete and self._has_incomplete()):
             return 0
         started = time.perf_counter()
-        with atomic_h5(self.path, copy_from=self.path, follow=False) as f:
+        reserve = 2 * sum(p.stat().st_size for p in parts) + 2**20  # copies + HDF5 slack
+        with atomic_h5(self.path, copy_from=self.path, follow=False, reserve=reserve) as f:
             f.attrs["fluxline_layout"] = LAYOUT_VERSION  # layout 2 reads layout 1 groups
             runs = f.require_group("runs")
             if drop_incomplete:
