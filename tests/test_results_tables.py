@@ -149,3 +149,27 @@ with stop_on_signals(), on_abort(lambda: open({str(marker)!r}, "w").close()):
     assert proc.returncode == 143
     assert marker.exists() and "Traceback" not in proc.stderr
     assert "second signal" in proc.stderr
+
+
+def test_lost_worker_is_recorded_as_failed_with_its_reason(tmp_path, capsys):
+    from lgt.cli import main
+    from lgt.sweep import list_runs
+    from lgt.sweep.executors import Executor, WorkerLost
+    from lgt.sweep.work import execute_point
+
+    class LosesSecond(Executor):
+        def run(self, fn, jobs):
+            for index, job in enumerate(jobs):
+                yield index, (WorkerLost("worker 42 was killed by SIGKILL", 3) if index == 1
+                              else execute_point(*job))
+
+    cfg = tomllib.loads('[model]\nsites = 4\n[spectrum]\ncount = 2\n[sweep]\ntask = "spectrum"\n'
+                        '[sweep.grid]\n"model.mass" = [0.1, 0.5, 0.9]\n')
+    out = tmp_path / "s.h5"
+    summary = run_sweep(cfg, out, LosesSecond(), progress=False)
+    assert (summary.completed, summary.failed, summary.exit_code) == (2, 1, 1)
+    failed = [r for r in list_runs(out) if r["status"] == "failed"]
+    assert failed[0]["error"] == "worker lost 3 times: worker 42 was killed by SIGKILL"
+    assert main(["runs", str(out)]) == 1
+    assert "failed: worker lost 3 times" in capsys.readouterr().out
+    assert run_sweep(cfg, out, progress=False).completed == 1  # redone on the next start

@@ -100,8 +100,12 @@ def _run(config: Mapping[str, Any], output: str | Path, executor: Executor | Non
     finally:
         if bar is not None:
             bar.close()
-        executor.shutdown(cancel=not finished)  # every worker is stopped and reaped
-        store.close()
+        try:
+            with deferred():  # a signal now waits for the workers' reaping and the merge
+                executor.shutdown(cancel=not finished)  # every worker is stopped and reaped
+                store.close()
+        except KeyboardInterrupt as exc:
+            stop = stop or exc
     summary = SweepSummary(total=len(plan.points), skipped=len(plan.points) - len(todo),
                            completed=completed, failed=failed, interrupted=stop is not None,
                            seconds=time.perf_counter() - started,

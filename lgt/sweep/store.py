@@ -32,7 +32,7 @@ import h5py
 
 from lgt.errors import ConfigError, InputError
 from lgt.files import (atomic_h5, check_output_path, open_no_follow, real_directory,
-                       resolve_output)
+                       resolve_output, resource_error)
 from lgt.hashing import canonical_json
 from lgt.io import (LAYOUT_VERSION, STATUS_COMPLETE, check_layout, check_run, run_status,
                     set_attr, write_h5md_root, write_run_group)
@@ -287,9 +287,13 @@ class SweepStore:
             if same:
                 break
             os.close(fd)  # the lock file was removed by a finishing sweep: retry
-        os.ftruncate(fd, 0)
-        os.write(fd, json.dumps({"host": socket.gethostname(), "pid": os.getpid()}).encode())
         self._lock_fd = fd
+        try:  # who holds the lock, for humans; the flock itself is what counts
+            os.ftruncate(fd, 0)
+            os.write(fd, json.dumps({"host": socket.gethostname(), "pid": os.getpid()}).encode())
+        except OSError as exc:
+            self._unlock()
+            raise (resource_error(self.lock_path, exc, kept=False) or exc) from None
 
     def _unlock(self) -> None:
         if self._lock_fd is None:
