@@ -12,7 +12,7 @@ def handle(args: argparse.Namespace) -> int:
     (failed, corrupt or missing); 2 if the file cannot be read as a sweep file."""
     from lgt.errors import InputError
     from lgt.io import DAMAGE
-    from lgt.sweep.reader import list_runs, sweep_info
+    from lgt.sweep.reader import full_check_by_default, list_runs, sweep_info
 
     try:
         info = sweep_info(args.results)
@@ -24,6 +24,8 @@ def handle(args: argparse.Namespace) -> int:
             print(json.dumps(row))
     else:
         _print_table(info, rows)
+        if not args.verify and not full_check_by_default(args.results):
+            print("structure checked; pass --verify to read every dataset")
     return 0 if len(rows) == info["points"] and all(r["status"] == "complete" for r in rows) else 1
 
 
@@ -62,6 +64,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     p = subparsers.add_parser("runs", help="list the runs stored in a sweep results file")
     p.add_argument("results", help="HDF5 file written by 'fluxline sweep'")
     p.add_argument("--json", action="store_true", help="one JSON object per run")
-    p.add_argument("--verify", action="store_true",
-                   help="read every dataset in full (checks the fletcher32 checksums)")
+    p.add_argument("--verify", action="store_true", default=None,
+                   help="read every dataset in full (checks the fletcher32 checksums); "
+                        "the default for files up to 256 MiB")
     p.set_defaults(func=handle)
