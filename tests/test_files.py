@@ -333,3 +333,32 @@ def test_sweep_on_a_full_disk_stops_with_a_named_error(tmp_path, monkeypatch):
     monkeypatch.setattr(store, "write_run_group", real)
     assert [r["status"] for r in list_runs(out)] == ["complete"]  # the first run was kept
     assert run_sweep(SPECTRUM, out, progress=False).completed == 2
+
+
+def test_runs_on_a_missing_file_or_a_directory_is_a_named_error(tmp_path, capsys):
+    from lgt.cli import main
+    assert main(["runs", str(tmp_path / "missing.h5")]) == 2
+    assert main(["runs", str(tmp_path)]) == 2
+    err = capsys.readouterr().err
+    assert "does not exist" in err and "is a directory" in err
+
+
+def test_damaged_part_file_is_set_aside_and_its_run_recomputed(tmp_path):
+    from lgt.sweep.plan import expand_sweep
+    from lgt.sweep.store import SweepStore
+    from lgt.sweep.work import execute_point
+
+    out = tmp_path / "s.h5"
+    plan = expand_sweep(SPECTRUM)
+    store = SweepStore(out, plan, merge_every=1e9)
+    store.open()
+    outcome = execute_point(plan.task, plan.points[0].config)
+    store.add(plan.points[0], outcome.result, outcome.info)
+    part = parts_dir(out) / f"{plan.points[0].run_id}.h5"
+    store._unlock()  # as if the coordinator had been killed before merging
+    part.write_bytes(part.read_bytes()[:200])  # torn by something outside Fluxline
+    with pytest.warns(UserWarning, match="is damaged"):
+        summary = run_sweep(SPECTRUM, out, progress=False)
+    assert summary.completed == 3
+    assert part.with_name(part.name + ".damaged").exists()
+    assert [r["status"] for r in list_runs(out)] == ["complete"] * 3
