@@ -96,33 +96,44 @@ class ProcessPoolRunner(Executor):
         attempts = [0] * len(jobs)
         idle = [w for w in self._procs if w.alive()]
         busy: dict[WorkerProcess, int] = {}
+
+        def lost(index: int, reason: str) -> list[tuple[int, Any]]:
+            """Retry the job, or report it lost after ``max_attempts``."""
+            if attempts[index] < self.max_attempts:
+                queue.appendleft(index)
+                return []
+            return [(index, WorkerLost(reason, attempts[index]))]
+
+        def dispatch() -> list[tuple[int, Any]]:
+            given_up = []
+            while queue and (idle or len(busy) < self.workers):
+                worker = idle.pop() if idle else self._spawn()
+                index = queue.popleft()
+                attempts[index] += 1
+                if worker.send((fn, jobs[index])):
+                    busy[worker] = index
+                else:  # died before taking the job
+                    self._discard(worker)
+                    given_up += lost(index, "worker process ended before taking the run")
+            return given_up
+
         with on_abort(self.kill_all):
             while queue or busy:
-                while queue and (idle or len(busy) < self.workers):
-                    worker = idle.pop() if idle else self._spawn()
-                    index = queue.popleft()
-                    attempts[index] += 1
-                    if worker.send((fn, jobs[index])):
-                        busy[worker] = index
-                    else:  # died before taking the job
-                        attempts[index] -= 1
-                        queue.appendleft(index)
-                        self._discard(worker)
+                ready = dispatch()
                 for worker, message in wait_for_workers(busy):
                     index = busy.pop(worker)
-                    if message is not None:
-                        ok, value = message
-                        idle.append(worker)
-                        if not ok:
-                            raise value
-                        yield index, value
+                    if message is None:
+                        reason = worker.death_reason()
+                        self._discard(worker)
+                        ready += lost(index, reason)
                         continue
-                    reason = worker.death_reason()
-                    self._discard(worker)
-                    if attempts[index] < self.max_attempts:
-                        queue.appendleft(index)
-                    else:
-                        yield index, WorkerLost(reason, attempts[index])
+                    ok, value = message
+                    idle.append(worker)
+                    if not ok:
+                        raise value
+                    ready.append((index, value))
+                ready += dispatch()  # workers compute while the coordinator stores results
+                yield from ready
 
     def _discard(self, worker: "WorkerProcess") -> None:
         worker.kill()
