@@ -118,15 +118,16 @@ def stop_on_signals() -> Iterator[None]:
 
 @contextmanager
 def deferred() -> Iterator[None]:
-    """Delay the first stop signal's exception until the block ends (a write completes)."""
+    """Delay the first stop signal's exception until the block ends (a write completes); an
+    exception of the block itself takes precedence."""
     _state.deferring += 1
     try:
         yield
     finally:
         _state.deferring -= 1
-        if not _state.deferring and _state.pending:
-            _state.pending = False
-            raise Interrupted(_state.received or signal.SIGINT)
+    if not _state.deferring and _state.pending:
+        _state.pending = False
+        raise Interrupted(_state.received or signal.SIGINT)
 
 
 @contextmanager

@@ -14,13 +14,14 @@ import shutil
 import socket
 import subprocess
 import sys
+import warnings
 from pathlib import Path
 
 import h5py
 import numpy as np
 import pytest
 
-from lgt.errors import ConfigError, InputError, ResourceError
+from lgt.errors import ConfigError, FluxlineError, InputError, ResourceError
 from lgt.files import atomic_h5, check_output_path, remove_stale_temporaries
 from lgt.io import read_run_file, write_run_file
 from lgt.results import RunResult, TimeSeries
@@ -254,6 +255,14 @@ def test_byte_flips_give_named_errors_and_never_a_false_complete(sweep_file, tmp
                 assert _readable(bad, row["run_id"]), f"flip at {offset}: complete but unreadable"
         for args in (["runs", str(bad)], ["runs", "--verify", str(bad)]):
             assert main(args) in (0, 1, 2)  # and no exception escaped
+        resumed = _flipped(sweep_file, tmp_path / f"resume{k}.h5", offset)
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")  # "part file is damaged" and the like
+                run_sweep(SPECTRUM, resumed, progress=False)
+        except FluxlineError:
+            continue  # a named error (e.g. not a readable HDF5 file; pass --overwrite)
+        assert [r["status"] for r in list_runs(resumed)] == ["complete"] * 3, offset
     capsys.readouterr()
 
 

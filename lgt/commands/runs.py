@@ -12,7 +12,8 @@ def handle(args: argparse.Namespace) -> int:
     (failed, corrupt or missing); 2 if the file cannot be read as a sweep file."""
     from lgt.errors import InputError
     from lgt.io import DAMAGE
-    from lgt.sweep.reader import full_check_by_default, list_runs, sweep_info
+    from lgt.sweep.reader import list_runs, sweep_info
+    from lgt.sweep.store import full_check_by_default
 
     try:
         info = sweep_info(args.results)

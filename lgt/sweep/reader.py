@@ -18,12 +18,10 @@ import numpy as np
 from lgt.errors import InputError
 from lgt.io import (DAMAGE, STATUS_COMPLETE, check_layout, check_run, get_attr, open_result_file,
                     read_run, run_status)
-from lgt.sweep.store import parts_dir
+from lgt.sweep.store import full_check_by_default, parts_dir
 
 #: Status shown for a run marked complete whose data cannot be read.
 STATUS_CORRUPT = "corrupt"
-#: Files up to this size (bytes, main file plus parts) are read in full by ``list_runs``.
-AUTO_VERIFY_BYTES = 256 * 2**20
 
 
 def _open_runs(stack: ExitStack, path: str | Path) -> tuple[h5py.File, dict[str, tuple[h5py.Group, str]]]:
@@ -65,17 +63,6 @@ def _attr(group: h5py.Group, key: str, default: Any = None) -> Any:
         return default
 
 
-def full_check_by_default(path: str | Path) -> bool:
-    """Whether :func:`list_runs` reads every dataset when ``verify`` is not given: for files
-    (main file and parts) up to :data:`AUTO_VERIFY_BYTES`."""
-    path = Path(path)
-    try:
-        size = path.stat().st_size + sum(p.stat().st_size for p in parts_dir(path).glob("*.h5"))
-    except OSError:
-        return False
-    return size <= AUTO_VERIFY_BYTES
-
-
 def list_runs(path: str | Path, verify: bool | None = None) -> list[dict[str, Any]]:
     """One dict per run: run_id, point, status, assignments, finished_at, wall_seconds,
     worker, error (first line, for failed and corrupt runs) and storage (merged / pending
@@ -84,7 +71,7 @@ def list_runs(path: str | Path, verify: bool | None = None) -> list[dict[str, An
     A run is listed ``complete`` only if its attributes and dataset headers read and, with
     ``verify``, every dataset reads in full as well (checking the fletcher32 checksums);
     otherwise its status is ``corrupt`` and ``error`` says what failed. ``verify=None`` reads
-    everything for files up to :data:`AUTO_VERIFY_BYTES` (so a small sweep is never listed
+    everything for files up to ``lgt.sweep.store.AUTO_VERIFY_BYTES`` (256 MiB; so a small sweep is never listed
     complete with unreadable data), only the structure above.
     """
     if verify is None:

@@ -34,8 +34,8 @@ from lgt.errors import ConfigError, InputError
 from lgt.files import (atomic_h5, check_output_path, open_no_follow, real_directory,
                        resolve_output, resource_error)
 from lgt.hashing import canonical_json
-from lgt.io import (LAYOUT_VERSION, STATUS_COMPLETE, check_layout, check_run, run_status,
-                    set_attr, write_h5md_root, write_run_group)
+from lgt.io import (DAMAGE, LAYOUT_VERSION, STATUS_COMPLETE, check_layout, check_run, get_attr,
+                    run_status, set_attr, write_h5md_root, write_run_group)
 from lgt.results import RunResult
 from lgt.sweep.plan import SweepPlan, SweepPoint
 
@@ -45,9 +45,33 @@ MERGE_COST_FACTOR = 20.0
 STATUS_FAILED = "failed"
 
 
-def usable(group: h5py.Group) -> bool:
-    """A run counts as done only if its status is ``complete`` and its structure reads."""
-    return check_run(group) is None and run_status(group) == STATUS_COMPLETE
+#: Sweep files up to this size (bytes, main file plus parts) are read in full when runs are
+#: listed or a sweep resumes, so a run whose data does not read is never taken as complete.
+AUTO_VERIFY_BYTES = 256 * 2**20
+
+
+def full_check_by_default(path: str | Path) -> bool:
+    """Whether checks of the sweep file ``path`` read every dataset (size up to
+    :data:`AUTO_VERIFY_BYTES`) or only attributes and dataset headers."""
+    path = Path(path)
+    try:
+        size = path.stat().st_size + sum(p.stat().st_size for p in parts_dir(path).glob("*.h5"))
+    except OSError:
+        return False
+    return size <= AUTO_VERIFY_BYTES
+
+
+def usable(group: h5py.Group, read_data: bool = False) -> bool:
+    """A run counts as done only if its status is ``complete`` and it reads (its structure;
+    with ``read_data`` every dataset in full)."""
+    return check_run(group, read_data) is None and run_status(group) == STATUS_COMPLETE
+
+
+def _created(f: h5py.File) -> str:
+    try:
+        return str(get_attr(f, "created", ""))
+    except DAMAGE:
+        return ""
 
 
 def parts_dir(path: str | Path) -> Path:
@@ -79,6 +103,7 @@ class SweepStore:
         self._lock_fd: int | None = None
         self._last_merge = time.monotonic()
         self._merge_seconds = 0.0
+        self._read_data = False  # decided on open: full checks for small files
 
     # ------------------------------------------------------------------ lifecycle
     def open(self) -> set[str]:
@@ -97,6 +122,7 @@ class SweepStore:
                 self._create_main()
             for part in self._part_files():
                 self._check_part(part)
+            self._read_data = full_check_by_default(self.path)
             self.merge(drop_incomplete=True)
             return self.complete_ids()
         except BaseException:
@@ -160,17 +186,16 @@ class SweepStore:
     def merge(self, drop_incomplete: bool = False) -> int:
         """Fold part files into the main file copy-on-write; return the number merged."""
         self._last_merge = time.monotonic()
+        if drop_incomplete and self._has_incomplete():
+            self._rebuild()
         parts = self._part_files()
-        if not parts and not (drop_incomplete and self._has_incomplete()):
+        if not parts:
             return 0
         started = time.perf_counter()
         reserve = 2 * sum(p.stat().st_size for p in parts) + 2**20  # copies + HDF5 slack
         with atomic_h5(self.path, copy_from=self.path, follow=False, reserve=reserve) as f:
             f.attrs["fluxline_layout"] = LAYOUT_VERSION  # layout 2 reads layout 1 groups
             runs = f.require_group("runs")
-            if drop_incomplete:
-                for run_id in [r for r in runs if not usable(runs[r])]:
-                    del runs[run_id]
             for part in parts:
                 self._merge_part(part, runs)
         for part in parts:
@@ -191,31 +216,60 @@ class SweepStore:
                 src.copy(group, runs, name=run_id)
 
     def _has_incomplete(self) -> bool:
-        with h5py.File(self.path, "r") as f:
-            return any(not usable(g) for g in f.get("runs", {}).values())
+        try:
+            with h5py.File(self.path, "r") as f:
+                return any(not usable(g, self._read_data) for g in f["runs"].values())
+        except DAMAGE:
+            return True
+
+    def _rebuild(self) -> None:
+        """Write a fresh main file holding only the usable runs of the old one (incomplete,
+        failed and damaged runs are dropped and so recomputed; a damaged group cannot even be
+        deleted in place)."""
+        with h5py.File(self.path, "r") as old, atomic_h5(self.path, follow=False) as f:
+            try:
+                names = list(old["runs"])
+            except DAMAGE:
+                raise ConfigError("--output", str(self.path),
+                                  "is damaged (its list of runs cannot be read); pass "
+                                  "--overwrite to start again") from None
+            self._write_root(f, created=_created(old))
+            runs = f["runs"]
+            for run_id in names:
+                try:
+                    group = old["runs"][run_id]
+                    if usable(group, self._read_data):
+                        old.copy(group, runs, name=run_id)
+                except DAMAGE:
+                    if run_id in runs:
+                        del runs[run_id]
 
     def complete_ids(self) -> set[str]:
         """Run ids complete (and readable) in the main file or in part files."""
         done: set[str] = set()
         for file in [self.path, *self._part_files()]:
             with h5py.File(file, "r") as f:
-                done.update(r for r, g in f.get("runs", {}).items() if usable(g))
+                done.update(r for r, g in f.get("runs", {}).items()
+                            if usable(g, self._read_data))
         return done
 
     # ------------------------------------------------------------------ identity
     def _create_main(self) -> None:
-        plan = self.plan
         with atomic_h5(self.path, follow=False) as f:
-            write_h5md_root(f)
-            for key, value in {
-                "sweep_config_hash": plan.config_hash, "sweep_config": plan.config_json,
-                "sweep_task": plan.task, "sweep_points": len(plan.points),
-                "sweep_grid": canonical_json(list(plan.grid.items())),
-                "sweep_zip": canonical_json(list(plan.zip.items())),
-                "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
-            }.items():
-                set_attr(f, key, value)
-            f.create_group("runs")
+            self._write_root(f, created=time.strftime("%Y-%m-%dT%H:%M:%S%z"))
+
+    def _write_root(self, f: h5py.File, created: str) -> None:
+        """Root metadata of a main file and an empty ``runs`` group."""
+        plan = self.plan
+        write_h5md_root(f)
+        for key, value in {
+            "sweep_config_hash": plan.config_hash, "sweep_config": plan.config_json,
+            "sweep_task": plan.task, "sweep_points": len(plan.points),
+            "sweep_grid": canonical_json(list(plan.grid.items())),
+            "sweep_zip": canonical_json(list(plan.zip.items())), "created": created,
+        }.items():
+            set_attr(f, key, value)
+        f.create_group("runs")
 
     def _check_identity(self, file: Path) -> None:
         try:
@@ -255,7 +309,7 @@ class SweepStore:
         ``<id>.h5.damaged`` (its run is recomputed) with a warning."""
         try:
             with h5py.File(part, "r") as f:
-                readable = all(check_run(g) is None for g in f["runs"].values())
+                readable = all(check_run(g, read_data=True) is None for g in f["runs"].values())
         except (OSError, KeyError, ValueError, RuntimeError):
             readable = False
         if readable:
