@@ -173,3 +173,20 @@ def test_lost_worker_is_recorded_as_failed_with_its_reason(tmp_path, capsys):
     assert main(["runs", str(out)]) == 1
     assert "failed: worker lost 3 times" in capsys.readouterr().out
     assert run_sweep(cfg, out, progress=False).completed == 1  # redone on the next start
+
+
+def test_sweep_tables_become_variables_along_a_row_axis(tmp_path):
+    from lgt.tasks import register_task, validate_spectrum
+
+    def run(resolved: dict) -> RunResult:
+        return RunResult("test-table", resolved, tables={"sizing": _sizing_table()})
+    register_task("test-table", validate_spectrum, run, sections=("model", "spectrum"))
+    cfg = tomllib.loads('[model]\nsites = 4\n[spectrum]\ncount = 2\n[sweep]\ntask = "test-table"\n'
+                        '[sweep.grid]\n"model.mass" = [0.1, 0.5]\n')
+    run_sweep(cfg, tmp_path / "t.h5", progress=False)
+    data = load_sweep(tmp_path / "t.h5")
+    np.testing.assert_array_equal(data["sizing.layers"], [[1, 2, 3], [1, 2, 3]])
+    ds = to_xarray(tmp_path / "t.h5")
+    assert ds["sizing.duration"].dims == ("model.mass", "sizing_row")
+    assert ds["sizing.duration"].attrs["units"] == "us"
+    assert ds["sizing.family"].values.tolist()[0] == ["hardware", "hardware", "subspace"]
