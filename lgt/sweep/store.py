@@ -11,9 +11,11 @@ narrows the window but does not close it. So the main file is never modified in 
   the runs are added to the copy, the copy is flushed, fsynced and moved over ``OUT.h5``. A kill
   at any moment leaves either the old or the new main file, and the parts not yet merged.
 
-On start the store merges leftover parts, deletes incomplete groups (status other than
-``complete``) so their runs are redone, and refuses an output written for another configuration.
-An advisory lock ``OUT.h5.lock`` keeps a second coordinator off the same output.
+On start the store merges leftover parts, drops incomplete, failed and unreadable groups (by
+writing a fresh main file of the readable runs) so their runs are redone, sets damaged part
+files aside, and refuses an output written for another configuration or layout. An advisory
+lock ``OUT.h5.lock`` (opened with ``O_NOFOLLOW``) keeps a second coordinator off the same
+output; the parts folder must be a real folder, not a link.
 """
 
 from __future__ import annotations
