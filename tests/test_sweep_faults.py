@@ -66,16 +66,25 @@ def _complete(out: Path) -> dict[str, float]:
         return {}
 
 
-def _wait_for(proc: subprocess.Popen, out: Path, at_least: int) -> list[int]:
-    """Wait until ``at_least`` runs are complete and both workers are alive; their pids."""
+def _wait_for(proc: subprocess.Popen, out: Path, at_least: int) -> tuple[list[int], list[int]]:
+    """Wait until ``at_least`` runs are complete and both pool workers are alive; return the
+    worker pids and the pids of every descendant (workers, multiprocessing's resource tracker)."""
     deadline = time.monotonic() + 60
     while True:
         assert proc.poll() is None, proc.stderr.read().decode()
         assert time.monotonic() < deadline, "sweep made no progress"
-        workers = [c.pid for c in psutil.Process(proc.pid).children(recursive=True)]
+        children = psutil.Process(proc.pid).children(recursive=True)
+        workers = [c.pid for c in children if "spawn_main" in " ".join(_cmdline(c))]
         if len(_complete(out)) >= at_least and len(workers) >= 2:
-            return workers
+            return workers, [c.pid for c in children]
         time.sleep(0.05)
+
+
+def _cmdline(process: psutil.Process) -> list[str]:
+    try:
+        return process.cmdline()
+    except psutil.Error:
+        return []
 
 
 def _gone(pids: list[int], within: float = 5.0) -> bool:
@@ -102,13 +111,13 @@ def _resume(tmp_path: Path) -> None:
 def test_sigterm_stops_reaps_workers_and_resumes_without_recomputing(tmp_path):
     out = tmp_path / "out.h5"
     proc = _start(tmp_path)
-    workers = _wait_for(proc, out, 2)
+    _, everyone = _wait_for(proc, out, 2)
     proc.send_signal(signal.SIGTERM)
     assert proc.wait(timeout=20) == 143
     err = proc.stderr.read().decode()
     assert "Traceback" not in err
     assert "terminated (SIGTERM)" in err and "To resume" in err and "fluxline sweep" in err
-    assert _gone(workers), "worker processes outlived the coordinator"
+    assert _gone(everyone), "worker processes outlived the coordinator"
     before = _complete(out)
     assert 2 <= len(before) < POINTS
     _resume(tmp_path)
@@ -120,29 +129,29 @@ def test_sigterm_stops_reaps_workers_and_resumes_without_recomputing(tmp_path):
 
 def test_sighup_is_handled_like_sigterm(tmp_path):
     proc = _start(tmp_path)
-    workers = _wait_for(proc, tmp_path / "out.h5", 1)
+    _, everyone = _wait_for(proc, tmp_path / "out.h5", 1)
     proc.send_signal(signal.SIGHUP)
     assert proc.wait(timeout=20) == 143
     assert "terminated (SIGHUP)" in proc.stderr.read().decode()
-    assert _gone(workers)
+    assert _gone(everyone)
 
 
 def test_ctrl_c_twice_ends_at_once_without_traceback_or_orphans(tmp_path):
     proc = _start(tmp_path)
-    workers = _wait_for(proc, tmp_path / "out.h5", 1)
+    _, everyone = _wait_for(proc, tmp_path / "out.h5", 1)
     started = time.monotonic()
     os.killpg(proc.pid, signal.SIGINT)  # a terminal's Ctrl-C goes to the whole process group
     os.killpg(proc.pid, signal.SIGINT)
     assert proc.wait(timeout=10) == 130
     assert time.monotonic() - started < 10
     assert "Traceback" not in proc.stderr.read().decode()
-    assert _gone(workers)
+    assert _gone(everyone)
 
 
 def test_killed_worker_costs_only_its_run(tmp_path):
     out = tmp_path / "out.h5"
     proc = _start(tmp_path)
-    workers = _wait_for(proc, out, 1)
+    workers, _ = _wait_for(proc, out, 1)
     os.kill(workers[0], signal.SIGKILL)  # what the OOM killer does
     assert proc.wait(timeout=120) == 0, proc.stderr.read().decode()
     rows = list_runs(out)
@@ -152,12 +161,12 @@ def test_killed_worker_costs_only_its_run(tmp_path):
 def test_sigkilled_coordinator_leaves_no_orphans_and_closes_the_pipe(tmp_path):
     # As in ``fluxline sweep ... | tee log``: the reader sees EOF once the coordinator is gone.
     proc = _start(tmp_path, stdout=subprocess.PIPE)
-    workers = _wait_for(proc, tmp_path / "out.h5", 1)
+    _, everyone = _wait_for(proc, tmp_path / "out.h5", 1)
     eof = threading.Event()
     threading.Thread(target=lambda: (proc.stdout.read(), eof.set()), daemon=True).start()
     proc.send_signal(signal.SIGKILL)
     proc.wait()
-    assert _gone(workers), "pool workers survived a SIGKILLed coordinator"
+    assert _gone(everyone), "pool workers survived a SIGKILLed coordinator"
     assert eof.wait(5), "the output pipe stayed open"
 
 
