@@ -37,6 +37,9 @@ RESOURCE_ERRNOS = {errno.ENOSPC, errno.EDQUOT, errno.EACCES, errno.EPERM, errno.
                    errno.EFBIG, errno.ENOMEM}
 #: Temporaries of the old naming scheme (no pid) older than this are removed (seconds).
 STALE_AGE = 3600.0
+#: Files up to this size (bytes) are modified in memory and written with os.write; larger
+#: ones are modified on disk after a free-space check.
+IN_MEMORY_BYTES = 256 * 2**20
 #: HDF5 format bounds for new files: v110 object headers carry metadata checksums.
 LIBVER = ("v110", "latest")
 
@@ -175,9 +178,10 @@ def atomic_h5(path: str | Path, copy_from: str | Path | None = None, follow: boo
     A new file is built in memory (HDF5 "core" driver) and its image written to a temporary
     file beside the target with plain ``os.write`` calls, so a full disk is an ordinary
     ``ENOSPC`` and never leaves the HDF5 library in a failed state. With ``copy_from`` the
-    temporary starts as a byte copy of that file and is modified on disk; ``reserve`` bytes
-    (the data about to be added) must be free beyond the copy, else the write is refused
-    before it starts. On success the temporary is fsynced and moved over ``path`` with
+    new file starts as a copy of that file: modified in memory too when it is at most
+    :data:`IN_MEMORY_BYTES`, else copied to the temporary and modified on disk, where
+    ``reserve`` bytes (the data about to be added) must be free beyond the copy or the write
+    is refused before it starts. On success the temporary is fsynced and moved over ``path`` with
     :func:`os.replace` (atomic on POSIX), and the directory is fsynced. On any exception, or
     if the process is killed, ``path`` is untouched. A symbolic link at ``path`` is followed
     (its target is replaced) unless ``follow`` is false (then the link itself is replaced;
@@ -196,6 +200,15 @@ def atomic_h5(path: str | Path, copy_from: str | Path | None = None, follow: boo
             if copy_from is None:
                 with h5py.File(tmp + ".image", "w", driver="core", backing_store=False,
                                libver=LIBVER) as f:
+                    yield f
+                    f.flush()
+                    image = f.id.get_file_image()
+                _write_all(fd, image)
+                del image
+            elif Path(copy_from).stat().st_size <= IN_MEMORY_BYTES:
+                # the core driver reads the file into memory; nothing is written back to it
+                with h5py.File(copy_from, "r+", driver="core", backing_store=False,
+                               locking=False, libver=LIBVER) as f:
                     yield f
                     f.flush()
                     image = f.id.get_file_image()

@@ -371,3 +371,20 @@ def test_damaged_part_file_is_set_aside_and_its_run_recomputed(tmp_path):
     assert summary.completed == 3
     assert part.with_name(part.name + ".damaged").exists()
     assert [r["status"] for r in list_runs(out)] == ["complete"] * 3
+
+
+def test_merge_on_a_full_disk_keeps_the_main_file(tmp_path, monkeypatch):
+    import lgt.files as files
+
+    out = tmp_path / "s.h5"
+    run_sweep(SPECTRUM, out, progress=False)
+    before = out.read_bytes()
+
+    def full(fd, data):
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+    monkeypatch.setattr(files, "_write_all", full)
+    with pytest.raises(ResourceError, match="No space left on device"):
+        with atomic_h5(out, copy_from=out, follow=False) as f:
+            f["runs"].create_group("extra")
+    assert out.read_bytes() == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["s.h5"]
