@@ -201,3 +201,30 @@ def test_dask_worker_that_disappears_is_reported(tmp_path):
         results = dict(runner.run(fault_helpers.square_or_die, [(x, 2) for x in range(4)]))
     assert results[0] == 0 and results[3] == 9
     assert isinstance(results[2], WorkerLost)
+
+
+@pytest.mark.slow
+def test_many_random_sigterms_lose_and_recompute_nothing(tmp_path):
+    import random
+
+    rng = random.Random(143)
+    out = tmp_path / "out.h5"
+    seen: dict[str, float] = {}
+    for _ in range(8):
+        proc = _start(tmp_path)
+        try:
+            _, everyone = _wait_for(proc, out, min(len(seen) + 1, POINTS))
+        except AssertionError:  # finished before we could interrupt it
+            assert proc.wait(timeout=60) == 0
+            break
+        time.sleep(rng.uniform(0.0, 0.4))
+        proc.send_signal(signal.SIGTERM)
+        assert proc.wait(timeout=20) in (0, 143)
+        assert "Traceback" not in proc.stderr.read().decode()
+        assert _gone(everyone)
+        now = _complete(out)
+        assert seen.items() <= now.items()  # nothing lost, nothing recomputed
+        seen = now
+    _resume(tmp_path)
+    final = _complete(out)
+    assert len(final) == POINTS and {k: final[k] for k in seen} == seen
