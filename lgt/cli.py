@@ -32,13 +32,16 @@ def build_parser() -> argparse.ArgumentParser:
 
 def run_entry(func: Callable[[argparse.Namespace], int | None], args: argparse.Namespace) -> int:
     """Run a command function and map what it raises to one stderr line and an exit status."""
+    from lgt.signals import describe, stop_on_signals
+
     try:
-        status = int(func(args) or 0)
-        sys.stdout.flush()  # a closed pipe shows here, not at interpreter exit
+        with stop_on_signals():  # SIGTERM/SIGHUP stop like Ctrl-C (exit 143)
+            status = int(func(args) or 0)
+            sys.stdout.flush()  # a closed pipe shows here, not at interpreter exit
         return status
-    except KeyboardInterrupt:
-        print("fluxline: interrupted", file=sys.stderr)
-        return exit_status(KeyboardInterrupt())
+    except KeyboardInterrupt as exc:
+        print(f"fluxline: {describe(exc)}", file=sys.stderr)
+        return exit_status(exc)
     except BrokenPipeError as exc:
         _silence_stdout()
         return exit_status(exc)

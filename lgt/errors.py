@@ -104,8 +104,8 @@ def exit_status(exc: BaseException) -> int:
     """The documented exit status for an exception reaching a command-line entry point."""
     if isinstance(exc, FluxlineError):
         return exc.exit_status
-    if isinstance(exc, KeyboardInterrupt):
-        return EXIT_INTERRUPTED
+    if isinstance(exc, KeyboardInterrupt):  # lgt.signals.Interrupted carries 130 or 143
+        return getattr(exc, "exit_status", EXIT_INTERRUPTED)
     if isinstance(exc, BrokenPipeError):
         return EXIT_BROKEN_PIPE
     if isinstance(exc, (MemoryError, OSError)):

@@ -27,9 +27,11 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def handle(args: argparse.Namespace) -> int:
-    """Run the sweep; exit 0 when complete, 1 if runs failed, 130 when interrupted."""
+    """Run the sweep; exit 0 when complete, 1 if runs failed, 2 bad input, 130 after SIGINT,
+    143 after SIGTERM/SIGHUP (docs/sweeps.md)."""
     from lgt.config import load_config
     from lgt.errors import ConfigError
+    from lgt.files import check_output_path
     from lgt.sweep.executors import make_executor
     from lgt.sweep.plan import expand_sweep
     from lgt.sweep.runner import run_sweep
@@ -38,6 +40,7 @@ def handle(args: argparse.Namespace) -> int:
         raise ConfigError("--merge-every", args.merge_every, "must be non-negative")
     config = load_config(args.config)
     plan = expand_sweep(config)  # fail on bad input before starting any worker
+    check_output_path(args.output, overwrite=True)  # an existing sweep file is resumed
     executor = make_executor(args.workers, args.scheduler, args.dask_local)
     hint = "fluxline sweep " + " ".join(shlex.quote(a) for a in _resume_argv(args))
     with executor:

@@ -8,13 +8,30 @@ from __future__ import annotations
 
 import multiprocessing
 from abc import ABC, abstractmethod
-from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from collections import deque
+from dataclasses import dataclass
 from typing import Any, Callable, Iterator, Sequence
 
 from lgt.errors import ConfigError
-from lgt.sweep.pinning import pin_blas_threads, single_thread_environ
+from lgt.signals import on_abort
+from lgt.sweep.pinning import pin_blas_threads, pinned, single_thread_environ
+from lgt.sweep.worker import WorkerProcess, wait_for_workers
 
 Job = tuple[Any, ...]
+#: Attempts per run when its worker process dies (the first try plus two retries).
+MAX_ATTEMPTS = 3
+
+
+@dataclass
+class WorkerLost:
+    """Yielded instead of a result when a run's worker died on every attempt."""
+
+    reason: str
+    attempts: int
+
+    def message(self) -> str:
+        """One line for the failure record."""
+        return f"worker lost {self.attempts} times: {self.reason}"
 
 
 class Executor(ABC):
@@ -46,40 +63,96 @@ class SerialExecutor(Executor):
     name = "serial"
 
     def run(self, fn: Callable[..., Any], jobs: Sequence[Job]) -> Iterator[tuple[int, Any]]:
-        for index, job in enumerate(jobs):
-            yield index, fn(*job)
+        with pinned():  # one BLAS thread, as in the pool workers: identical results
+            for index, job in enumerate(jobs):
+                yield index, fn(*job)
 
 
 class ProcessPoolRunner(Executor):
-    """A local pool of ``workers`` processes (spawn start method, one BLAS thread each)."""
+    """A local pool of ``workers`` processes (spawn start method, one BLAS thread each).
+
+    Each worker holds one job at a time, so the coordinator knows which run a dead worker
+    (OOM killer, ``kill -9``) was computing: that run is retried on a fresh worker, at most
+    :data:`MAX_ATTEMPTS` times in all, then reported as :class:`WorkerLost`. Workers ignore
+    SIGINT/SIGHUP (the coordinator decides), and die with their coordinator
+    (:mod:`lgt.sweep.worker`).
+    """
 
     name = "process pool"
 
-    def __init__(self, workers: int) -> None:
+    def __init__(self, workers: int, max_attempts: int = MAX_ATTEMPTS) -> None:
         self.workers = workers
-        self._pool = ProcessPoolExecutor(max_workers=workers,
-                                         mp_context=multiprocessing.get_context("spawn"),
-                                         initializer=pin_blas_threads)
+        self.max_attempts = max_attempts
+        self._context = multiprocessing.get_context("spawn")
+        self._procs: list[WorkerProcess] = []
+
+    def _spawn(self) -> "WorkerProcess":
+        worker = WorkerProcess(self._context)
+        self._procs.append(worker)
+        return worker
 
     def run(self, fn: Callable[..., Any], jobs: Sequence[Job]) -> Iterator[tuple[int, Any]]:
-        # Keep at most 2 jobs per worker queued so that Ctrl-C has little to cancel.
-        pending: dict[Any, int] = {}
-        queue = iter(enumerate(jobs))
-        for index, job in queue:
-            pending[self._pool.submit(fn, *job)] = index
-            if len(pending) >= 2 * self.workers:
-                break
-        while pending:
-            done, _ = wait(pending, return_when=FIRST_COMPLETED)
-            for future in done:
-                index = pending.pop(future)
-                yield index, future.result()
-                nxt = next(queue, None)
-                if nxt is not None:
-                    pending[self._pool.submit(fn, *nxt[1])] = nxt[0]
+        queue = deque(range(len(jobs)))
+        attempts = [0] * len(jobs)
+        idle = [w for w in self._procs if w.alive()]
+        busy: dict[WorkerProcess, int] = {}
+
+        def lost(index: int, reason: str) -> list[tuple[int, Any]]:
+            """Retry the job, or report it lost after ``max_attempts``."""
+            if attempts[index] < self.max_attempts:
+                queue.appendleft(index)
+                return []
+            return [(index, WorkerLost(reason, attempts[index]))]
+
+        def dispatch() -> list[tuple[int, Any]]:
+            given_up = []
+            while queue and (idle or len(busy) < self.workers):
+                worker = idle.pop() if idle else self._spawn()
+                index = queue.popleft()
+                attempts[index] += 1
+                if worker.send((fn, jobs[index])):
+                    busy[worker] = index
+                else:  # died before taking the job
+                    self._discard(worker)
+                    given_up += lost(index, "worker process ended before taking the run")
+            return given_up
+
+        with on_abort(self.kill_all):
+            while queue or busy:
+                ready = dispatch()
+                for worker, message in wait_for_workers(busy):
+                    index = busy.pop(worker)
+                    if message is None:
+                        reason = worker.death_reason()
+                        self._discard(worker)
+                        ready += lost(index, reason)
+                        continue
+                    ok, value = message
+                    idle.append(worker)
+                    if not ok:
+                        raise value
+                    ready.append((index, value))
+                ready += dispatch()  # workers compute while the coordinator stores results
+                yield from ready
+
+    def _discard(self, worker: "WorkerProcess") -> None:
+        worker.kill()
+        if worker in self._procs:
+            self._procs.remove(worker)
+
+    def kill_all(self) -> None:
+        """SIGKILL and reap every worker now (second signal, or cancellation)."""
+        for worker in self._procs:
+            worker.kill()
+        self._procs = []
 
     def shutdown(self, cancel: bool = False) -> None:
-        self._pool.shutdown(wait=not cancel, cancel_futures=cancel)
+        if cancel:
+            self.kill_all()
+            return
+        for worker in self._procs:
+            worker.stop()
+        self._procs = []
 
     def describe(self) -> str:
         return f"process pool ({self.workers} workers)"
@@ -111,7 +184,8 @@ class DaskRunner(Executor):
         else:
             key = "distributed.nanny.pre-spawn-environ"
             environ = {**dask.config.get(key, default={}), **single_thread_environ()}
-            with dask.config.set({key: environ}):
+            with dask.config.set({key: environ,
+                                  "distributed.scheduler.allowed-failures": MAX_ATTEMPTS - 1}):
                 self._cluster = LocalCluster(n_workers=local_workers, threads_per_worker=1,
                                              processes=True, dashboard_address=None)
             self.client = Client(self._cluster)
@@ -119,12 +193,21 @@ class DaskRunner(Executor):
         self._futures: list[Any] = []
 
     def run(self, fn: Callable[..., Any], jobs: Sequence[Job]) -> Iterator[tuple[int, Any]]:
+        """Yield results as they finish; a run whose workers died more often than the
+        scheduler's ``allowed-failures`` (set to ``MAX_ATTEMPTS - 1`` for a LocalCluster we
+        start) comes back as :class:`WorkerLost`."""
         from distributed import as_completed
+        from distributed.scheduler import KilledWorker
 
         self._futures = [self.client.submit(fn, *job, pure=False) for job in jobs]
         index_of = {future.key: i for i, future in enumerate(self._futures)}
         for future in as_completed(self._futures):
-            yield index_of[future.key], future.result()
+            index = index_of[future.key]
+            try:
+                value = future.result()
+            except KilledWorker as exc:
+                value = WorkerLost(f"dask worker died while running it ({exc})", MAX_ATTEMPTS)
+            yield index, value
             future.release()
 
     def shutdown(self, cancel: bool = False) -> None:

@@ -2,7 +2,10 @@
 
 from __future__ import annotations
 
+import importlib
 import os
+from contextlib import contextmanager
+from typing import Iterator
 
 #: Environment variables read by the common BLAS / OpenMP runtimes when they load.
 THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
@@ -27,3 +30,22 @@ def pin_blas_threads() -> None:
     except ImportError:
         return
     threadpool_limits(1)
+
+
+@contextmanager
+def pinned() -> Iterator[None]:
+    """Limit already-loaded BLAS/OpenMP libraries to one thread inside the block (restored
+    afterwards), so that a serial sweep computes exactly like a pinned pool worker: multi-
+    threaded BLAS sums in a different order (results differ in the last digits)."""
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:
+        yield
+        return
+    for module in ("numpy", "scipy.linalg"):  # load their BLAS copies so the limit reaches them
+        try:
+            importlib.import_module(module)
+        except ImportError:
+            pass
+    with threadpool_limits(1):
+        yield

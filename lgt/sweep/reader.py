@@ -7,72 +7,121 @@ Runs finished but not yet merged into the main file (after a kill) are read from
 from __future__ import annotations
 
 import json
+import warnings
 from contextlib import ExitStack
 from pathlib import Path
-from typing import Any
+from typing import Any, Iterator
 
 import h5py
 import numpy as np
 
-from lgt.io import STATUS_COMPLETE, read_run, run_status
-from lgt.sweep.store import parts_dir
+from lgt.errors import InputError
+from lgt.io import (DAMAGE, STATUS_COMPLETE, check_layout, check_run, get_attr, open_result_file,
+                    read_run, run_status)
+from lgt.sweep.store import full_check_by_default, parts_dir
+
+#: Status shown for a run marked complete whose data cannot be read.
+STATUS_CORRUPT = "corrupt"
 
 
 def _open_runs(stack: ExitStack, path: str | Path) -> tuple[h5py.File, dict[str, tuple[h5py.Group, str]]]:
     """Open the main file and its parts; map run id -> (group, "merged" | "pending")."""
     path = Path(path)
-    if not path.exists():
-        raise FileNotFoundError(f"no sweep output at {path}")
-    main = stack.enter_context(h5py.File(path, "r"))
-    if "sweep_config_hash" not in main.attrs:
-        raise ValueError(f"{path} is not a Fluxline sweep file")
-    runs = {run_id: (g, "merged") for run_id, g in main.get("runs", {}).items()}
+    main = stack.enter_context(open_result_file(path))
+    try:
+        if "sweep_config_hash" not in main.attrs:
+            raise InputError(str(path), "is not a Fluxline sweep file")
+        runs = {run_id: (g, "merged") for run_id, g in main["runs"].items()}
+    except DAMAGE as exc:
+        raise InputError(str(path), f"is damaged: the run index cannot be read ({exc})") from None
     for part in sorted(parts_dir(path).glob("*.h5")):
         try:
             f = stack.enter_context(h5py.File(part, "r"))
-        except OSError:
-            continue
-        if f.attrs.get("sweep_config_hash") != main.attrs["sweep_config_hash"]:
-            continue
-        for run_id, g in f.get("runs", {}).items():
-            if run_id not in runs or run_status(runs[run_id][0]) != STATUS_COMPLETE:
+            check_layout(f)
+            if f.attrs.get("sweep_config_hash") != main.attrs["sweep_config_hash"]:
+                continue
+            items = list(f.get("runs", {}).items())
+        except (InputError, *DAMAGE):
+            continue  # a damaged part is set aside (and its run redone) by the next sweep
+        for run_id, g in items:
+            if run_id not in runs or not _complete(runs[run_id][0]):
                 runs[run_id] = (g, "pending merge")
     return main, runs
 
 
+def _complete(group: h5py.Group) -> bool:
+    try:
+        return run_status(group) == STATUS_COMPLETE
+    except DAMAGE:
+        return False
+
+
 def _attr(group: h5py.Group, key: str, default: Any = None) -> Any:
-    value = group.attrs.get(key, default)
-    if isinstance(value, bytes):
-        return value.decode()
-    return value.item() if isinstance(value, np.generic) else value
+    try:
+        return get_attr(group, key, default)
+    except DAMAGE:
+        return default
 
 
-def list_runs(path: str | Path) -> list[dict[str, Any]]:
+def list_runs(path: str | Path, verify: bool | None = None) -> list[dict[str, Any]]:
     """One dict per run: run_id, point, status, assignments, finished_at, wall_seconds,
-    worker, error (first line, for failed runs) and storage (merged / pending merge)."""
+    worker, error (first line, for failed and corrupt runs) and storage (merged / pending
+    merge).
+
+    A run is listed ``complete`` only if its attributes and dataset headers read and, with
+    ``verify``, every dataset reads in full as well (checking the fletcher32 checksums);
+    otherwise its status is ``corrupt`` and ``error`` says what failed. ``verify=None`` reads
+    everything for files up to ``lgt.sweep.store.AUTO_VERIFY_BYTES`` (256 MiB; so a small sweep is never listed
+    complete with unreadable data), only the structure above.
+    """
+    if verify is None:
+        verify = full_check_by_default(path)
     with ExitStack() as stack:
         _, runs = _open_runs(stack, path)
         rows = []
         for run_id, (g, storage) in runs.items():
-            error = _attr(g, "error")
+            problem = check_run(g, read_data=verify)
+            error = _attr(g, "error") if problem is None else problem
+            try:
+                assignments = json.loads(_attr(g, "sweep_assignments", "{}"))
+            except ValueError:
+                assignments = {}
             rows.append({
-                "run_id": run_id, "point": _attr(g, "sweep_point", -1),
-                "status": run_status(g),
-                "assignments": json.loads(_attr(g, "sweep_assignments", "{}")),
+                "run_id": run_id, "point": _int(_attr(g, "sweep_point", -1)),
+                "status": STATUS_CORRUPT if problem else run_status(g),
+                "assignments": assignments,
                 "finished_at": _attr(g, "finished_at"), "wall_seconds": _attr(g, "wall_seconds"),
                 "worker": _attr(g, "worker"), "storage": storage,
-                "error": error.splitlines()[0] if error else None,
+                "error": str(error).splitlines()[0] if error else None,
             })
     return sorted(rows, key=lambda r: r["point"])
 
 
+def _int(value: Any) -> int:
+    try:
+        return int(value)
+    except (TypeError, ValueError):
+        return -1
+
+
 def sweep_info(path: str | Path) -> dict[str, Any]:
     """File-level description: task, point count, grid and zip axes, config hash."""
-    with h5py.File(path, "r") as f:
-        a = f.attrs
-        return {"task": str(a["sweep_task"]), "points": int(a["sweep_points"]),
-                "grid": dict(json.loads(a["sweep_grid"])), "zip": dict(json.loads(a["sweep_zip"])),
-                "config_hash": str(a["sweep_config_hash"])}
+    with open_result_file(path) as f:
+        try:
+            return {"task": str(get_attr(f, "sweep_task")), "points": int(get_attr(f, "sweep_points")),
+                    "grid": dict(json.loads(get_attr(f, "sweep_grid"))),
+                    "zip": dict(json.loads(get_attr(f, "sweep_zip"))),
+                    "config_hash": str(get_attr(f, "sweep_config_hash"))}
+        except DAMAGE as exc:
+            raise InputError(str(path), f"is not a readable Fluxline sweep file ({exc})") from None
+
+
+#: Axis names and units of the arrays the built-in tasks store (other arrays get
+#: ``<name>_index`` axes).
+ARRAY_AXES = {"energies": ("level",), "gaps": ("level",), "field_values": ("field_level",)}
+ARRAY_UNITS = {"energies": "lattice energy", "gaps": "lattice energy"}
+#: Unit of stored times.
+TIME_UNIT = "lattice time"
 
 
 def load_sweep(path: str | Path) -> dict[str, np.ndarray]:
@@ -80,34 +129,91 @@ def load_sweep(path: str | Path) -> dict[str, np.ndarray]:
 
     Keys: ``run_id``, ``point``; each swept dotted key (``"model.mass"``); each stored array
     (``"energies"``); each observable's values (``"<name>"``) and times (``"<name>/time"``);
-    each scalar result attribute (``"dimension"``; ``"attr.<name>"`` if the name is taken).
-    Entries whose shapes differ between runs become object arrays.
+    each table column (``"<table>.<column>"``); each scalar result attribute (``"dimension"``;
+    ``"attr.<name>"`` if the name is taken). Entries whose shapes differ between runs become
+    object arrays. A run whose data cannot be read is left out with a warning.
     """
+    return {key: _stack(values) for key, values in _collect(path)[0].items()}
+
+
+def _collect(path: str | Path) -> tuple[dict[str, list[Any]], dict[str, tuple[tuple[str, ...], dict]]]:
+    """Columns of :func:`load_sweep` (as lists) and, per entry, the names of its axes after
+    the run axis and its attributes (units, description)."""
     info = sweep_info(path)
     axes = list(info["grid"]) + list(info["zip"])
+    meta: dict[str, tuple[tuple[str, ...], dict]] = {}
     with ExitStack() as stack:
         _, runs = _open_runs(stack, path)
-        complete = sorted(((_attr(g, "sweep_point", -1), run_id, g) for run_id, (g, _) in runs.items()
-                           if run_status(g) == STATUS_COMPLETE), key=lambda t: t[0])
+        complete = sorted(((_int(_attr(g, "sweep_point", -1)), run_id, g)
+                           for run_id, (g, _) in runs.items() if _complete(g)),
+                          key=lambda t: t[0])
         columns: dict[str, list[Any]] = {"run_id": [], "point": []}
         for key in axes:
             columns[key] = []
         for point, run_id, g in complete:
-            result = read_run(g)
-            assignments = json.loads(_attr(g, "sweep_assignments", "{}"))
+            try:
+                result = read_run(g)
+                assignments = json.loads(_attr(g, "sweep_assignments", "{}"))
+            except DAMAGE as exc:
+                warnings.warn(f"{path}: run {run_id} cannot be read ({exc}); left out "
+                              "(fluxline runs --verify lists damaged runs)", stacklevel=3)
+                continue
             columns["run_id"].append(run_id)
             columns["point"].append(point)
             for key in axes:
                 columns[key].append(assignments.get(key))
-            entries: dict[str, Any] = dict(result.arrays)
-            for name, series in result.series.items():
-                entries[name] = series.values
-                entries[f"{name}/time"] = series.times
-            for name, value in result.attributes.items():
-                entries[name if name not in entries and name not in axes else f"attr.{name}"] = value
-            for name, value in entries.items():
+            for name, value, dims, attrs in _entries(result, axes):
                 columns.setdefault(name, []).append(value)
-    return {key: _stack(values) for key, values in columns.items()}
+                meta.setdefault(name, (dims, attrs))
+    return columns, meta
+
+
+def _entries(result: Any, axes: list[str]) -> Iterator[tuple[str, Any, tuple[str, ...], dict]]:
+    """``(name, value, axis names, attributes)`` of everything one run stored."""
+    model = result.parameters.get("model", {})
+    sites = model.get("sites") if isinstance(model, dict) else None
+    taken: set[str] = set()
+    for name, array in result.arrays.items():
+        array = np.asarray(array)
+        dims = ARRAY_AXES.get(name) or _generic_axes(name, array.ndim)
+        attrs = {"units": ARRAY_UNITS[name]} if name in ARRAY_UNITS else {}
+        taken.add(name)
+        yield name, array, dims[:array.ndim], attrs
+    for name, series in result.series.items():
+        values = np.asarray(series.values)
+        taken.update((name, f"{name}/time"))
+        yield name, values, ("time", *_lattice_axes(name, values.shape[1:], sites)), \
+            {"units": series.unit}
+        yield f"{name}/time", np.asarray(series.times), ("time",), {"units": TIME_UNIT}
+    for table_name, table in result.tables.items():
+        for column, values in table.columns.items():
+            name = f"{table_name}.{column}"
+            taken.add(name)
+            attrs = {"description": table.description}
+            if column in table.units:
+                attrs["units"] = table.units[column]
+            yield name, values, (f"{table_name}_row",), attrs
+    for name, value in result.attributes.items():
+        key = name if name not in taken and name not in axes else f"attr.{name}"
+        yield key, value, (), {}
+
+
+def _lattice_axes(name: str, shape: tuple[int, ...], sites: Any) -> tuple[str, ...]:
+    """Per-site axes are ``site`` (then ``site_2``), per-link ones ``link``; others
+    ``<name>_index``."""
+    dims: list[str] = []
+    for i, n in enumerate(shape):
+        base = ("site" if isinstance(sites, int) and n == sites else
+                "link" if isinstance(sites, int) and n == sites - 1 else f"{name}_index")
+        dim, k = base, 2
+        while dim in dims:
+            dim, k = f"{base}_{k}", k + 1
+        dims.append(dim)
+    return tuple(dims)
+
+
+def _generic_axes(name: str, ndim: int) -> tuple[str, ...]:
+    return tuple(f"{name}_index" if i == 0 else f"{name}_index_{i + 1}" for i in range(ndim))
 
 
 def _stack(values: list[Any]) -> np.ndarray:
@@ -127,25 +233,36 @@ def _coordinate(values: np.ndarray) -> np.ndarray:
 
 
 def to_xarray(path: str | Path) -> Any:
-    """The sweep as an ``xarray.Dataset``.
+    """The sweep as an ``xarray.Dataset`` with named dimensions, coordinates and units.
 
     A complete sweep gets one dimension per grid axis plus a ``zip`` dimension (zipped keys
-    are coordinates along it); an incomplete one keeps the runs along a ``run`` dimension
-    with the swept keys as coordinates.
+    are coordinates along it); an incomplete one keeps the runs along a ``run`` dimension with
+    the swept keys as coordinates. Observables have a ``time`` dimension (a coordinate when
+    every run stored the same times; otherwise ``<name>/time`` variables) and ``site`` /
+    ``link`` axes; spectra a ``level`` axis; table columns ``<table>.<column>`` a
+    ``<table>_row`` axis. ``attrs["units"]`` carries each variable's unit.
     """
     import xarray as xr
 
     info = sweep_info(path)
-    data = load_sweep(path)
+    columns, meta = _collect(path)
+    data = {key: _stack(values) for key, values in columns.items()}
     n = len(data["run_id"])
     axes = list(info["grid"]) + list(info["zip"])
-    coords = {key: ("run", _coordinate(data[key])) for key in ["run_id", "point", *axes]}
+    coords: dict[str, Any] = {key: ("run", _coordinate(data[key]))
+                              for key in ["run_id", "point", *axes]}
+    times = [data[k] for k in data if k.endswith("/time") and data[k].dtype != object]
+    shared_time = (n > 0 and bool(times) and len(times) == sum(k.endswith("/time") for k in data)
+                   and all(t.shape == times[0].shape and np.array_equal(t, times[0][:1].repeat(n, 0))
+                           for t in times))
+    if shared_time:
+        coords["time"] = xr.Variable(("time",), times[0][0], attrs={"units": TIME_UNIT})
     variables = {}
     for name, values in data.items():
-        if name in coords or values.dtype == object:
+        if name in coords or values.dtype == object or (shared_time and name.endswith("/time")):
             continue
-        dims = ("run",) + tuple(f"{name}_dim{i}" for i in range(1, values.ndim))
-        variables[name] = (dims, values)
+        dims, attrs = meta.get(name, ((), {}))
+        variables[name] = xr.Variable(("run", *dims[:values.ndim - 1]), values, attrs=dict(attrs))
     ds = xr.Dataset(variables, coords=coords)
     if n == info["points"] and (info["grid"] or info["zip"]):
         ds = _gridded(ds, info)

@@ -44,8 +44,11 @@ def execute_point(task_name: str, resolved: dict[str, Any]) -> Outcome:
 
 
 def _thread_count() -> int:
-    """OS threads of this process after the run (Linux; -1 elsewhere), to audit BLAS pinning."""
+    """OS threads of this process after the run, less the worker's own parent watchdog
+    (Linux; -1 elsewhere), to audit BLAS pinning."""
+    from lgt.sweep.worker import own_threads
+
     try:
-        return len(os.listdir("/proc/self/task"))
+        return len(os.listdir("/proc/self/task")) - own_threads()
     except OSError:
         return -1
