@@ -1,4 +1,4 @@
-"""Initial states of a quench, from the ``[initial]`` TOML section (DESIGN §3).
+"""Initial states of a quench, from the ``[initial]`` TOML section (docs/conventions.md §3).
 
 Kinds
 -----
@@ -23,7 +23,8 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from lgt.basis import PhysicalBasis, occupations_from_levels
+from lgt.basis import PhysicalBasis
+from lgt.gauss import fields_from_charges, occupations_from_levels
 from lgt.config import as_choice, as_float, as_int, check_keys
 from lgt.errors import ConfigError
 from lgt.model import ModelParams
@@ -137,8 +138,7 @@ def _checked_overrides(section: Any, params: ModelParams) -> dict[str, float]:
 # ---------------------------------------------------------------------- construction
 def bare_fields(params: ModelParams, dynamical: np.ndarray | None = None) -> np.ndarray:
     """Fields L_n = ε + Σ_{k≤n} (Q_k + q_k), n = 0..K−1, for dynamical charges ``dynamical`` (length N)."""
-    Q = np.zeros(params.sites, dtype=np.int64) if dynamical is None else np.asarray(dynamical)
-    return params.boundary_field + np.cumsum(Q + params.charge_array())[: params.n_links].astype(float)
+    return fields_from_charges(params, dynamical)
 
 
 def initial_fields(params: ModelParams, resolved: Mapping[str, Any]) -> np.ndarray:
