@@ -44,7 +44,7 @@ def _local_codes(basis: PhysicalBasis, links: tuple[int, ...], levels_t: np.ndar
 
 def term_diagonal(basis: PhysicalBasis, term: ModelTerm, levels_t: np.ndarray | None = None) -> np.ndarray:
     """Values of a diagonal term on every basis state, shape (dim,)."""
-    return np.diag(term.matrix)[_local_codes(basis, term.links, levels_t)]
+    return term.operator.diagonal()[_local_codes(basis, term.links, levels_t)]
 
 
 def term_entries(basis: PhysicalBasis, term: ModelTerm, upper: bool = True,
@@ -55,19 +55,22 @@ def term_entries(basis: PhysicalBasis, term: ModelTerm, upper: bool = True,
     ones that raise L_link) — the rest follow by symmetry. Returns int64 ``src``, ``dst`` and the
     float values.
     """
-    M = np.array(term.matrix, dtype=float)
-    np.fill_diagonal(M, 0.0)
-    rows, cols = np.nonzero(np.triu(M) if upper else M)
+    coo = term.operator.tocoo()
+    keep = (coo.row > coo.col) if upper else (coo.row != coo.col)
+    keep &= coo.data != 0
+    rows, cols, data = coo.row[keep], coo.col[keep], coo.data[keep]
     local = _local_codes(basis, term.links, levels_t)
     configs = local_configurations(basis.params.levels, len(term.links))
     out_src, out_dst, out_val = [], [], []
     order = np.argsort(cols, kind="stable")
-    rows, cols = rows[order], cols[order]
+    rows, cols, data = rows[order], cols[order], data[order]
     layer = np.arange(cols.size) - np.searchsorted(cols, cols)  # k-th non-zero of its column
     for k in range(int(layer.max()) + 1 if cols.size else 0):
         sel = layer == k
-        target = np.full(M.shape[1], -1, dtype=np.intp)
+        target = np.full(term.operator.shape[1], -1, dtype=np.intp)
+        value = np.zeros(term.operator.shape[1])
         target[cols[sel]] = rows[sel]
+        value[cols[sel]] = data[sel]
         src = np.flatnonzero(target[local] >= 0)
         new_local = target[local[src]]
         dst = basis.index_after_change(src, term.links, configs[new_local])
@@ -75,7 +78,7 @@ def term_entries(basis: PhysicalBasis, term: ModelTerm, upper: bool = True,
             raise AssertionError(f"{term.kind} term {term.index} left the physical subspace")
         out_src.append(src)
         out_dst.append(dst)
-        out_val.append(M[new_local, local[src]])
+        out_val.append(value[local[src]])
     if not out_src:
         return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0)
     return np.concatenate(out_src).astype(np.int64), np.concatenate(out_dst), np.concatenate(out_val)
@@ -92,7 +95,8 @@ def _symmetric_csr(n: int, src: list[np.ndarray], dst: list[np.ndarray], val: li
     rows = np.concatenate([a.astype(index_type, copy=False) for a in src + dst] + idx or [np.zeros(0, index_type)])
     cols = np.concatenate([a.astype(index_type, copy=False) for a in dst + src] + idx or [np.zeros(0, index_type)])
     vals = np.concatenate(val + val + ([diag] if diag is not None else []) or [np.zeros(0)])
-    src.clear(), dst.clear(), val.clear()
+    for pieces in (src, dst, val):
+        pieces.clear()
     H = sp.coo_matrix((vals, (rows, cols)), shape=(n, n))
     del rows, cols, vals
     H = H.tocsr()
@@ -142,7 +146,7 @@ def build_hamiltonian(basis: PhysicalBasis) -> sp.csr_matrix:
     diag = np.zeros(n)
     src, dst, val = [], [], []
     for term in model_terms(basis.params):
-        if np.any(np.diag(term.matrix)):
+        if term.operator.diagonal().any():
             diag += term_diagonal(basis, term, levels_t)
         if not term.diagonal:
             s, t, v = term_entries(basis, term, levels_t=levels_t)
@@ -176,7 +180,8 @@ def physical_terms(basis: PhysicalBasis) -> list[PhysicalTerm]:
         if term.diagonal:
             m = sp.diags(diag).tocsr()
         else:
-            m = _symmetric_csr(n, *([x] for x in term_entries(basis, term, levels_t=levels_t)), diag)
+            m = _symmetric_csr(n, *([x] for x in term_entries(basis, term, levels_t=levels_t)),
+                               diag if diag.any() else None)
         out.append(PhysicalTerm(term.kind, term.index, m))
     return out
 
@@ -224,7 +229,7 @@ def register_hamiltonian(params: ModelParams, physical_only: bool = True,
         basis = PhysicalBasis(params) if basis is None else basis.with_couplings(params)
         H = build_hamiltonian(basis).tocoo()
         return sp.csr_matrix((H.data, (basis.codes[H.row], basis.codes[H.col])), shape=(D, D))
-    mats = [embed_term(t.matrix, t.links, params.n_links, params.levels) for t in model_terms(params)]
+    mats = [embed_term(t.operator, t.links, params.n_links, params.levels) for t in model_terms(params)]
     return reduce(lambda a, b: a + b, mats).tocsr()
 
 

@@ -1,6 +1,8 @@
 """The one term list of the lattice Schwinger Hamiltonian (docs/conventions.md §1–2).
 
-Each :class:`ModelTerm` is a dense real-symmetric operator on a few contiguous link qudits:
+Each :class:`ModelTerm` is a real-symmetric operator on a few contiguous link qudits, stored
+sparse (a 3-link hopping term at d = 11 would be a 14 MB dense matrix) and handed out dense
+through :attr:`ModelTerm.matrix` for circuit layers:
 
 * ``hopping`` across link n — on links n−1, n, n+1 (fewer at the ends): raises L_n by one iff
   the implied n_n = 0 and n_{n+1} = 1, amplitude w ⟨L+1|U|L⟩, plus the conjugate;
@@ -18,6 +20,7 @@ from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
+import scipy.sparse as sp
 
 from lgt.gauss import site_occupation, staggering
 from lgt.model import ModelParams
@@ -36,14 +39,19 @@ class ModelTerm:
         Link (hopping, electric) or site (mass) of the term.
     links : tuple of int
         Link qudits it acts on, ascending (row-major order inside ``matrix``).
-    matrix : (d^k, d^k) float array
+    operator : (d^k, d^k) scipy CSR matrix
         Real symmetric, lattice energy units.
     """
 
     kind: str
     index: int
     links: tuple[int, ...]
-    matrix: np.ndarray
+    operator: sp.csr_matrix
+
+    @property
+    def matrix(self) -> np.ndarray:
+        """The local operator as a dense (d^k, d^k) float array."""
+        return self.operator.toarray()
 
     @property
     def qudits(self) -> tuple[int, ...]:
@@ -53,7 +61,8 @@ class ModelTerm:
     @property
     def diagonal(self) -> bool:
         """True when the term is diagonal in the level basis."""
-        return not np.any(self.matrix - np.diag(np.diag(self.matrix)))
+        coo = self.operator.tocoo()
+        return bool(np.all(coo.row[coo.data != 0] == coo.col[coo.data != 0]))
 
 
 def local_configurations(d: int, k: int) -> np.ndarray:
@@ -76,16 +85,16 @@ def _hopping(params: ModelParams, link: int) -> ModelTerm:
     jl = col[link]
     src = np.flatnonzero((n_here == 0) & (n_next == 1) & (jl < d - 1))
     step = d ** (len(links) - 1 - links.index(link))
-    mat = np.zeros((d ** len(links),) * 2)
-    mat[src + step, src] = params.hopping * params.raising_amplitudes()[jl[src]]
-    return ModelTerm("hopping", link, links, mat + mat.T)
+    amp = params.hopping * params.raising_amplitudes()[jl[src]]
+    raise_ = sp.csr_matrix((amp, (src + step, src)), shape=(d ** len(links),) * 2)
+    return ModelTerm("hopping", link, links, (raise_ + raise_.T).tocsr())
 
 
 def _mass(params: ModelParams, site: int) -> ModelTerm:
     links, col = _window(params, site - 1, site)
     n = site_occupation(params, site, col.get(site - 1), col.get(site))
     sign = 1 - 2 * staggering(params.sites)[site]
-    return ModelTerm("mass", site, links, np.diag(params.mass * sign * n.astype(float)))
+    return ModelTerm("mass", site, links, sp.diags(params.mass * sign * n.astype(float)).tocsr())
 
 
 def electric_per_level(params: ModelParams) -> np.ndarray:
@@ -94,7 +103,7 @@ def electric_per_level(params: ModelParams) -> np.ndarray:
 
 
 def _electric(params: ModelParams, link: int) -> ModelTerm:
-    return ModelTerm("electric", link, (link,), np.diag(electric_per_level(params)))
+    return ModelTerm("electric", link, (link,), sp.diags(electric_per_level(params)).tocsr())
 
 
 #: Builder and index range (links or sites) of each term kind.
