@@ -1,4 +1,4 @@
-"""Observables of physical-subspace states, computed from the basis arrays (DESIGN §3).
+"""Observables of physical-subspace states, computed from the basis arrays (docs/conventions.md §3).
 
 All take a state ψ on the physical basis (complex, length ``dim``). Conventions:
 

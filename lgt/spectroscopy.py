@@ -1,4 +1,4 @@
-"""Spectroscopy: meson masses, static potential, string tension and breaking distance (DESIGN §3).
+"""Spectroscopy: meson masses, static potential, string tension and breaking distance (docs/conventions.md §3).
 
 Static-charge placement rule (kept fixed so the staggered potential does not zigzag): for a
 distance r (odd, 1 ≤ r ≤ N − 1) the +1 charge sits on the even site
