@@ -214,6 +214,15 @@ class PhysicalBasis:
         on_grid = np.all(np.abs(fields + self.params.spin - levels) < 1e-9, axis=1)
         return np.where(on_grid, self.index_of_levels(levels), -1)
 
+    def cut_codes(self, cut: int) -> tuple[np.ndarray, np.ndarray]:
+        """Row-major codes of links 0..cut−1 and of links cut..K−1 of every state (two int64 arrays).
+
+        Equal to ``divmod(codes, d^(K−cut))`` but needs only d^cut and d^(K−cut) to fit int64, so
+        register cuts work where the whole register code does not.
+        """
+        d = self.params.levels
+        return codes_of(self.level_table[:, :cut], d), codes_of(self.level_table[:, cut:], d)
+
     # ------------------------------------------------------------------ register maps
     def to_register(self, vector: np.ndarray) -> np.ndarray:
         """Embed a physical-subspace vector (or a (dim, m) block) into the d^K register."""
