@@ -82,11 +82,14 @@ def codes_of(levels: np.ndarray, d: int) -> np.ndarray:
 
 
 def levels_of_codes(codes: np.ndarray, d: int, K: int) -> np.ndarray:
-    """Level rows (M, K) of row-major register codes (inverse of :func:`codes_of`)."""
-    codes = np.asarray(codes, dtype=np.int64).copy()
+    """Level rows (M, K) of row-major register codes (inverse of :func:`codes_of`; object-dtype
+    codes beyond int64 are accepted)."""
+    codes = np.asarray(codes)
+    codes = codes.copy() if codes.dtype == object else codes.astype(np.int64)
     out = np.empty(codes.shape + (K,), dtype=np.int64)
     for n in range(K - 1, -1, -1):
-        codes, out[..., n] = np.divmod(codes, d)
+        out[..., n] = codes % d
+        codes = codes // d
     return out
 
 
@@ -98,9 +101,9 @@ class PhysicalBasis:
     params : ModelParams
     level_table : (dim, K) int8 array
         Level j_n = L_n + S of every link, rows in row-major (register-code) order.
-    codes : (dim,) int64 array
-        Register index of every basis state (ascending); computed on first use, only when
-        d^K fits int64 (else :class:`~lgt.errors.ResourceError`).
+    codes : (dim,) array
+        Register index of every basis state (ascending), computed on first use: int64 when d^K
+        fits, exact Python ints (object dtype) beyond.
     ranking : lgt.gauss.Ranking
         Transfer-matrix ranks: basis index of any physical level row.
     """
@@ -118,7 +121,13 @@ class PhysicalBasis:
 
     @cached_property
     def codes(self) -> np.ndarray:
-        return codes_of(self.level_table, self.params.levels)
+        """Register code of every state: int64 when d^K fits, else exact Python ints (object array,
+        slower; lookups and cuts do not need it — see :meth:`index_of_levels`, :meth:`cut_codes`)."""
+        d, K = self.params.levels, self.params.n_links
+        if register_fits_int64(d, K):
+            return codes_of(self.level_table, d)
+        weights = np.array([d ** (K - 1 - n) for n in range(K)], dtype=object)
+        return self.level_table.astype(object) @ weights
 
     def with_couplings(self, params: ModelParams) -> "PhysicalBasis":
         """The same basis (shared arrays) for a model that differs only in w, m, J, θ or link type.
@@ -201,7 +210,9 @@ class PhysicalBasis:
 
     def index_of_codes(self, codes: np.ndarray) -> np.ndarray:
         """Basis index of each register code; −1 where the code is not physical."""
-        codes = np.asarray(codes, dtype=np.int64)
+        codes = np.asarray(codes)
+        if codes.dtype != object:
+            codes = codes.astype(np.int64)
         K, d = self.params.n_links, self.params.levels
         inside = (codes >= 0) & (codes < self.register_dimension)
         idx = self.index_of_levels(levels_of_codes(np.where(inside, codes, 0).ravel(), d, K))

@@ -17,7 +17,7 @@ from hypothesis import given, settings, strategies as st
 
 from independent_models import spin_only_hamiltonian
 from lgt import gauss
-from lgt.basis import PhysicalBasis, register_fits_int64
+from lgt.basis import PhysicalBasis, codes_of, register_fits_int64
 from lgt.errors import ResourceError
 from lgt.hamiltonian import build_hamiltonian, hopping_pairs, physical_terms
 from lgt.model import ModelParams
@@ -136,7 +136,13 @@ def test_register_beyond_int64_free_fermions():
     basis = PhysicalBasis(p)
     assert basis.dimension == comb(N, N // 2) == 184_756 == count_physical_states(p)
     with pytest.raises(ResourceError):
-        basis.codes
+        codes_of(basis.level_table, p.levels)
+    # exact codes beyond int64 (Python ints), and lookups through them
+    row = basis.level_table[12345]
+    assert basis.codes[12345] == sum(int(j) * 11 ** (18 - n) for n, j in enumerate(row))
+    assert basis.index_of_codes(basis.codes[[0, 12345, -1]]).tolist() == [0, 12345, basis.dimension - 1]
+    left, right = basis.cut_codes(9)
+    assert int(left[12345]) * 11 ** 10 + int(right[12345]) == basis.codes[12345]
     H = build_hamiltonian(basis)
     e0 = sla.eigsh(H, k=1, which="SA")[0][0]
     h = np.diag(m * (-1.0) ** np.arange(N)) + w * (np.eye(N, k=1) + np.eye(N, k=-1))
