@@ -41,13 +41,12 @@ def enumerate_levels(params: ModelParams) -> np.ndarray:
     """
     K, d = params.n_links, params.levels
     counts = gauss.completion_counts(params)
-    steps = gauss.site_steps(params)
     current = np.array([params.boundary_level], dtype=np.int64)
     parents, chosen = [], []
     for n in range(K):
         alive = np.array([c > 0 for c in counts[n]] + [False])  # index d (or −1) → out of window
         # children of prefix i at 2i (n_n = 0) and 2i + 1 (n_n = 1): row-major order is kept
-        nxt = (current[:, None] + steps[n] + np.arange(2)[None, :]).ravel()
+        nxt = gauss.successors(params, n, current).ravel()
         src = np.repeat(np.arange(current.size), 2)
         inside = (nxt >= 0) & (nxt < d)
         ok = inside & alive[np.where(inside, nxt, d)]

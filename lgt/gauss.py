@@ -44,6 +44,14 @@ def site_occupation(params: ModelParams, site, left, right):
                     site_steps(params)[site])
 
 
+def successors(params: ModelParams, link: int, left) -> np.ndarray:
+    """The two levels j_link allowed after level(s) ``left`` of link link−1 (``None``: boundary),
+    those with implied n_link = 0 and 1 — the inverse of :func:`site_occupation`. Shape (..., 2);
+    they may lie outside the window."""
+    left = np.asarray(params.boundary_level if left is None else left)
+    return left[..., None] + site_steps(params)[link] + np.arange(2)
+
+
 def implied_occupations(levels: np.ndarray, params: ModelParams, norm: float = 1) -> np.ndarray:
     """Occupations implied by (mean) levels of shape (..., K); shape (..., N).
 
@@ -109,23 +117,19 @@ def completion_counts(params: ModelParams) -> list[np.ndarray]:
     c[n][j] = Σ_{o ∈ {0,1}} c[n+1][j + o + s_{n+1}] over in-window levels.
     """
     d, K = params.levels, params.n_links
-    last = np.array([site_occupation(params, params.sites - 1, j, None) for j in range(d)])
+    last = site_occupation(params, params.sites - 1, np.arange(d), None)
     counts = [np.zeros(d, dtype=object) for _ in range(K)]
     counts[K - 1][:] = np.isin(last, (0, 1)).astype(int)
-    step = site_steps(params)
     for n in range(K - 2, -1, -1):
-        nxt = counts[n + 1]
-        for o in (0, 1):
-            shift = int(step[n + 1]) + o
-            lo, hi = max(0, -shift), min(d, d - shift)
-            if lo < hi:
-                counts[n][lo:hi] += nxt[lo + shift:hi + shift]
+        succ = successors(params, n + 1, np.arange(d))          # (d, 2)
+        inside = (succ >= 0) & (succ < d)
+        counts[n][:] = np.where(inside, counts[n + 1][np.clip(succ, 0, d - 1)], 0).sum(axis=1)
     return counts
 
 
 def first_levels(params: ModelParams) -> np.ndarray:
     """Levels j_0 allowed next to the boundary (implied n_0 ∈ {0, 1}), in the window."""
-    j = params.boundary_level + site_steps(params)[0] + np.arange(2)
+    j = successors(params, 0, None)
     return j[(j >= 0) & (j < params.levels)]
 
 
@@ -155,19 +159,14 @@ class Ranking:
         total = count_physical_states(params)
         if total >= 2 ** 62:
             raise OverflowError(f"{total} physical states cannot be indexed")
-        step = site_steps(params)
         tables = np.zeros((K, d + 1, d), dtype=np.int64)
         for n in range(K):
             c = np.array([min(int(x), 2 ** 62) for x in counts[n]], dtype=np.int64)
-            for a in range(d + 1):
-                prev = params.boundary_level if a == d else a
-                if (a == d) != (n == 0):
-                    continue
+            for a in ([d] if n == 0 else range(d)):   # row d: the boundary before link 0
+                succ = successors(params, n, None if a == d else a)
+                succ = succ[(succ >= 0) & (succ < d)]
                 allowed = np.zeros(d, dtype=np.int64)
-                for o in (0, 1):
-                    b = prev + int(step[n]) + o
-                    if 0 <= b < d:
-                        allowed[b] = c[b]
+                allowed[succ] = c[succ]
                 tables[n, a] = np.concatenate([[0], np.cumsum(allowed)[:-1]])
         return cls(tables, int(total))
 
@@ -192,5 +191,5 @@ class Ranking:
 
 __all__ = ["staggering", "site_steps", "site_occupation", "implied_occupations", "occupations_from_levels",
            "occupations_from_mean_levels", "fields_from_occupations", "fields_from_charges",
-           "particle_density", "is_physical", "completion_counts", "first_levels",
+           "particle_density", "is_physical", "successors", "completion_counts", "first_levels",
            "count_physical_states", "Ranking"]

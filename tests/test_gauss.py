@@ -170,3 +170,14 @@ def test_register_beyond_int64_interacting_matches_spins_only(seed):
     np.testing.assert_allclose(ours, theirs, atol=1e-8)
     total = sum(t.matrix for t in physical_terms(basis))
     assert abs(total - H).max() < 1e-12
+
+
+@settings(max_examples=30, deadline=None)
+@given(params=small_models())
+def test_successors_invert_the_site_occupation(params):
+    # the forward step used by enumeration and counting gives exactly n = 0 and n = 1
+    for link in range(params.n_links):
+        left = None if link == 0 else np.arange(params.levels)
+        succ = gauss.successors(params, link, left)
+        occ = gauss.site_occupation(params, link, left if left is None else left[:, None], succ)
+        assert np.all(occ == np.arange(2))
