@@ -176,34 +176,30 @@ class PhysicalBasis:
         idx = self.ranking.rank(np.where(ok[:, None], levels, self.level_table[0]))
         return np.where(ok, idx, -1)
 
-    def index_after_change(self, rows: np.ndarray, links: tuple[int, ...], new_levels: np.ndarray) -> np.ndarray:
+    def index_after_change(self, rows: np.ndarray, links: tuple[int, ...], new_levels: np.ndarray,
+                           levels_t: np.ndarray | None = None) -> np.ndarray:
         """Basis index of states ``rows`` with the levels of contiguous ``links`` replaced by
         ``new_levels`` (shape (len(rows), len(links))); −1 where the result is not physical.
 
         Only the rank terms of the changed links and their right neighbour are recomputed, so the
-        cost is O(len(links)) per state whatever K.
+        cost is O(len(links)) per state whatever K. ``levels_t``: the transposed level table, when
+        the caller has one (faster gathers).
         """
-        K, table = self.params.n_links, self.level_table
+        K, d = self.params.n_links, self.params.levels
         first, last = links[0], links[-1]
         new_levels = np.asarray(new_levels, dtype=np.intp).reshape(len(rows), len(links))
-        ok = np.all((new_levels >= 0) & (new_levels < self.params.levels), axis=1)
-        new_levels = np.clip(new_levels, 0, self.params.levels - 1)
-
-        def level(n: int, new: bool) -> np.ndarray | None:
-            if n < 0 or n >= K:
-                return None
-            if new and first <= n <= last:
-                return new_levels[:, n - first]
-            return table[rows, n].astype(np.intp)
-
+        ok = np.all((new_levels >= 0) & (new_levels < d), axis=1)
+        new_levels = np.clip(new_levels, 0, d - 1)
+        cols = self.level_table.T if levels_t is None else levels_t
+        old = {n: cols[n][rows].astype(np.intp) for n in range(max(first - 1, 0), min(last + 2, K))}
+        new = dict(old)
+        new.update({n: new_levels[:, n - first] for n in range(first, last + 1)})
         delta = np.zeros(len(rows), dtype=np.int64)
         for n in range(first, min(last + 1, K - 1) + 1):
-            old_l, old_r, new_l, new_r = level(n - 1, False), level(n, False), level(n - 1, True), level(n, True)
-            minus1 = np.full(len(rows), -1, dtype=np.intp)
-            delta += self.ranking.contributions(n, minus1 if new_l is None else new_l, new_r)
-            delta -= self.ranking.contributions(n, minus1 if old_l is None else old_l, old_r)
+            delta += self.ranking.contributions(n, new.get(n - 1, -1), new[n])
+            delta -= self.ranking.contributions(n, old.get(n - 1, -1), old[n])
         for site in range(first, last + 2):
-            occ = gauss.site_occupation(self.params, site, level(site - 1, True), level(site, True))
+            occ = gauss.site_occupation(self.params, site, new.get(site - 1), new.get(site))
             ok &= (occ == 0) | (occ == 1)
         return np.where(ok, np.asarray(rows, dtype=np.int64) + delta, -1)
 

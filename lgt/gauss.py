@@ -170,10 +170,12 @@ class Ranking:
                 tables[n, a] = np.concatenate([[0], np.cumsum(allowed)[:-1]])
         return cls(tables, int(total))
 
-    def contributions(self, links: np.ndarray | int, left: np.ndarray, right: np.ndarray) -> np.ndarray:
+    def contributions(self, links: np.ndarray | int, left: np.ndarray | int, right: np.ndarray) -> np.ndarray:
         """table[n][left, right] for link(s) n; ``left`` = −1 means the boundary."""
         d = self.tables.shape[2]
         a = np.where(np.asarray(left) < 0, d, left)
+        if np.ndim(links) == 0:  # one link: a flat gather
+            return self.tables[links].ravel()[a * d + right]
         return self.tables[links, a, right]
 
     def rank(self, levels: np.ndarray, chunk: int = 1 << 16) -> np.ndarray:

@@ -73,7 +73,7 @@ def term_entries(basis: PhysicalBasis, term: ModelTerm, upper: bool = True,
         value[cols[sel]] = data[sel]
         src = np.flatnonzero(target[local] >= 0)
         new_local = target[local[src]]
-        dst = basis.index_after_change(src, term.links, configs[new_local])
+        dst = basis.index_after_change(src, term.links, configs[new_local], levels_t)
         if np.any(dst < 0):  # the terms preserve Gauss's law: the target must be physical
             raise AssertionError(f"{term.kind} term {term.index} left the physical subspace")
         out_src.append(src)
