@@ -44,14 +44,23 @@ def enumerate_levels(params: ModelParams) -> np.ndarray:
     current = np.array([params.boundary_level], dtype=np.int64)
     parents, chosen = [], []
     for n in range(K):
-        alive = np.array([c > 0 for c in counts[n]] + [False])  # index d (or −1) → out of window
-        # children of prefix i at 2i (n_n = 0) and 2i + 1 (n_n = 1): row-major order is kept
-        nxt = gauss.successors(params, n, current).ravel()
-        src = np.repeat(np.arange(current.size), 2)
-        inside = (nxt >= 0) & (nxt < d)
-        ok = inside & alive[np.where(inside, nxt, d)]
-        parents.append(src[ok])
-        current = nxt[ok]
+        # which of the two successors (n_n = 0, 1) of each level can still be completed
+        levels = np.arange(d) if n else current
+        succ = gauss.successors(params, n, levels)                       # (len(levels), 2)
+        inside = (succ >= 0) & (succ < d)
+        completable = np.array([c > 0 for c in counts[n]], dtype=bool)
+        alive = inside & completable[np.clip(succ, 0, d - 1)]
+        key = current if n else np.zeros(1, dtype=np.int64)
+        n_children = alive.sum(axis=1).astype(np.int8)[key]
+        # children of prefix i stay contiguous and ordered by level: row-major order is kept
+        src = np.repeat(np.arange(current.size, dtype=np.int32), n_children)
+        first = np.cumsum(n_children, dtype=np.int64) - n_children
+        pos = np.arange(src.size, dtype=np.int64) - first[src]
+        skip0 = (~alive[:, 0])[key]                                      # only the n_n = 1 child
+        occupation = pos + skip0[src]
+        start = succ[:, 0][key]
+        current = start[src] + occupation
+        parents.append(src)
         chosen.append(current.astype(np.int8))
     if current.size == 0:
         raise ConfigError("model", params.to_dict(),
@@ -185,23 +194,36 @@ class PhysicalBasis:
         cost is O(len(links)) per state whatever K. ``levels_t``: the transposed level table, when
         the caller has one (faster gathers).
         """
-        K, d = self.params.n_links, self.params.levels
+        K = self.params.n_links
         first, last = links[0], links[-1]
-        new_levels = np.asarray(new_levels, dtype=np.intp).reshape(len(rows), len(links))
-        ok = np.all((new_levels >= 0) & (new_levels < d), axis=1)
-        new_levels = np.clip(new_levels, 0, d - 1)
         cols = self.level_table.T if levels_t is None else levels_t
         old = {n: cols[n][rows].astype(np.intp) for n in range(max(first - 1, 0), min(last + 2, K))}
+        new_levels = np.asarray(new_levels, dtype=np.intp).reshape(len(rows), len(links))
+        delta, ok = self.rank_change(links, old, new_levels)
+        return np.where(ok, np.asarray(rows, dtype=np.int64) + delta, -1)
+
+    def rank_change(self, links: tuple[int, ...], old: dict[int, np.ndarray],
+                    new_levels: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(index change, still physical) when the levels of contiguous ``links`` go from ``old``
+        (columns of links first−1..last+1 that exist) to ``new_levels`` (M, len(links)).
+
+        Gauss's law fixes the basis index as a sum of per-link rank terms, so only the terms of
+        the changed links and of their right neighbour move.
+        """
+        K, d = self.params.n_links, self.params.levels
+        first, last = links[0], links[-1]
+        ok = np.all((new_levels >= 0) & (new_levels < d), axis=1)
+        new_levels = np.clip(new_levels, 0, d - 1)
         new = dict(old)
         new.update({n: new_levels[:, n - first] for n in range(first, last + 1)})
-        delta = np.zeros(len(rows), dtype=np.int64)
+        delta = np.zeros(len(new_levels), dtype=np.int64)
         for n in range(first, min(last + 1, K - 1) + 1):
             delta += self.ranking.contributions(n, new.get(n - 1, -1), new[n])
             delta -= self.ranking.contributions(n, old.get(n - 1, -1), old[n])
         for site in range(first, last + 2):
             occ = gauss.site_occupation(self.params, site, new.get(site - 1), new.get(site))
             ok &= (occ == 0) | (occ == 1)
-        return np.where(ok, np.asarray(rows, dtype=np.int64) + delta, -1)
+        return delta, ok
 
     def index_of_codes(self, codes: np.ndarray) -> np.ndarray:
         """Basis index of each register code; −1 where the code is not physical."""

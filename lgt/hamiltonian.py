@@ -31,15 +31,19 @@ LocalTerm = ModelTerm
 
 
 # ---------------------------------------------------------------------- one term on the basis
+def _codes_of_columns(columns, d: int) -> np.ndarray:
+    """Row-major code Σ_i c_i d^{k−1−i} of level columns c_0..c_{k−1} (intp)."""
+    code = np.zeros(len(columns[0]), dtype=np.intp)
+    for column in columns:
+        code *= d
+        code += column
+    return code
+
+
 def _local_codes(basis: PhysicalBasis, links: tuple[int, ...], levels_t: np.ndarray | None) -> np.ndarray:
     """Row-major code of every basis state's levels on ``links`` (index into the term's matrix)."""
-    d = basis.params.levels
     cols = levels_t if levels_t is not None else basis.level_table.T
-    code = np.zeros(basis.dimension, dtype=np.intp)
-    for q in links:
-        code *= d
-        code += cols[q]
-    return code
+    return _codes_of_columns([cols[q] for q in links], basis.params.levels)
 
 
 def term_diagonal(basis: PhysicalBasis, term: ModelTerm, levels_t: np.ndarray | None = None) -> np.ndarray:
@@ -59,26 +63,39 @@ def term_entries(basis: PhysicalBasis, term: ModelTerm, upper: bool = True,
     keep = (coo.row > coo.col) if upper else (coo.row != coo.col)
     keep &= coo.data != 0
     rows, cols, data = coo.row[keep], coo.col[keep], coo.data[keep]
-    local = _local_codes(basis, term.links, levels_t)
-    configs = local_configurations(basis.params.levels, len(term.links))
-    out_src, out_dst, out_val = [], [], []
     order = np.argsort(cols, kind="stable")
     rows, cols, data = rows[order], cols[order], data[order]
     layer = np.arange(cols.size) - np.searchsorted(cols, cols)  # k-th non-zero of its column
+    p, K = basis.params, basis.params.n_links
+    # the index change depends on the levels of the term's links and of one neighbour on each side
+    ext = tuple(range(max(term.links[0] - 1, 0), min(term.links[-1] + 2, K)))
+    if p.levels ** len(ext) <= max(basis.dimension, 1 << 12):  # tables over neighbourhoods
+        ext_configs = local_configurations(p.levels, len(ext))
+        old = {q: ext_configs[:, i] for i, q in enumerate(ext)}
+        code = _local_codes(basis, ext, levels_t)
+    else:  # large d: the states themselves are the "neighbourhoods"
+        table_t = levels_t if levels_t is not None else basis.level_table.T
+        old = {q: table_t[q].astype(np.intp) for q in ext}
+        code = np.arange(basis.dimension)
+    local_of_ext = _codes_of_columns([old[q] for q in term.links], p.levels)
+    configs = local_configurations(p.levels, len(term.links))
+    out_src, out_dst, out_val = [], [], []
     for k in range(int(layer.max()) + 1 if cols.size else 0):
         sel = layer == k
         target = np.full(term.operator.shape[1], -1, dtype=np.intp)
         value = np.zeros(term.operator.shape[1])
         target[cols[sel]] = rows[sel]
         value[cols[sel]] = data[sel]
-        src = np.flatnonzero(target[local] >= 0)
-        new_local = target[local[src]]
-        dst = basis.index_after_change(src, term.links, configs[new_local], levels_t)
-        if np.any(dst < 0):  # the terms preserve Gauss's law: the target must be physical
+        # index change and value per neighbourhood configuration, then one gather per state
+        tgt = target[local_of_ext]
+        delta, ok = basis.rank_change(term.links, old, configs[np.maximum(tgt, 0)])
+        src = np.flatnonzero(tgt[code] >= 0)
+        at = code[src]
+        if not np.all(ok[at]):  # the terms preserve Gauss's law: the target must be physical
             raise AssertionError(f"{term.kind} term {term.index} left the physical subspace")
         out_src.append(src)
-        out_dst.append(dst)
-        out_val.append(value[local[src]])
+        out_dst.append(src + delta[at])
+        out_val.append(value[local_of_ext][at])
     if not out_src:
         return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0)
     return np.concatenate(out_src).astype(np.int64), np.concatenate(out_dst), np.concatenate(out_val)
