@@ -125,8 +125,8 @@ def test_hopping_targets_raise_one_link():
 
 def test_register_beyond_int64_free_fermions():
     # N = 20, d = 11: d^K = 11^19 ≈ 6e19 does not fit int64 codes. The field never exceeds
-    # N/4 = 5 = S, so the window is never reached and the subspace is the whole zero-charge
-    # sector: C(20, 10) states (10 of 20 sites occupied). At J = 0 the model is free fermions
+    # ⌈N/4⌉ = 5 = S (docs/conventions.md §2), so the window is never reached and the subspace is
+    # the whole zero-charge sector: C(20, 10) states (10 of 20 sites occupied). At J = 0 the model is free fermions
     # (nearest-neighbour hopping on an open chain: no Jordan–Wigner sign), so the ground energy
     # is the sum of the 10 lowest eigenvalues of the 20 × 20 one-particle matrix
     # h = w (δ_{n,n+1} + δ_{n+1,n}) + m (−1)^n δ_{nn} (textbook result).
@@ -151,7 +151,7 @@ def test_register_beyond_int64_free_fermions():
 
 @pytest.mark.parametrize("seed", [0, 1])
 def test_register_beyond_int64_interacting_matches_spins_only(seed):
-    # N = 16, d = 21 (d^K = 21^15 ≈ 7e19 > int64): |L| ≤ N/4 = 4 < S = 10, so the truncated model
+    # N = 16, d = 21 (d^K = 21^15 ≈ 7e19 > int64): |L| ≤ ⌈N/4⌉ = 4 < S = 10 (static pair: ≤ 5), so the truncated model
     # is the untruncated one; reference: the spins-only formulation without a window
     # (tests/independent_models.py, docs/conventions.md §2 (c)), one static pair included.
     rng = np.random.default_rng(seed)
