@@ -93,6 +93,12 @@ def fields_from_charges(params: ModelParams, dynamical: np.ndarray | None = None
     return fields_from_occupations(Q + staggering(params.sites), params)
 
 
+def end_field(params: ModelParams, dynamical: np.ndarray | None = None) -> float:
+    """L_{N−1} = ε + Σ_k (Q_k + q_k) implied by charges Q (default 0); Gauss's law needs it to be ε."""
+    Q = np.zeros(params.sites, dtype=np.int64) if dynamical is None else np.asarray(dynamical, dtype=np.int64)
+    return float(params.boundary_field + (Q + params.charge_array()).sum())
+
+
 def particle_density(occupations: np.ndarray) -> float | np.ndarray:
     """ν = (1/N) Σ_n [n_n on even n, 1 − n_n on odd n] over the last axis (float for one state)."""
     occupations = np.asarray(occupations, dtype=float)
@@ -192,6 +198,6 @@ class Ranking:
 
 
 __all__ = ["staggering", "site_steps", "site_occupation", "implied_occupations", "occupations_from_levels",
-           "occupations_from_mean_levels", "fields_from_occupations", "fields_from_charges",
+           "occupations_from_mean_levels", "fields_from_occupations", "fields_from_charges", "end_field",
            "particle_density", "is_physical", "successors", "completion_counts", "first_levels",
            "count_physical_states", "Ranking"]

@@ -24,7 +24,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from lgt.basis import PhysicalBasis
-from lgt.gauss import fields_from_charges, occupations_from_levels
+from lgt.gauss import end_field, fields_from_charges, occupations_from_levels
 from lgt.config import as_choice, as_float, as_int, check_keys
 from lgt.errors import ConfigError
 from lgt.model import ModelParams
@@ -159,7 +159,7 @@ def initial_fields(params: ModelParams, resolved: Mapping[str, Any]) -> np.ndarr
         for s in (i, j):
             Q[s] = 1 if s % 2 == 0 else -1  # particle on even, antiparticle on odd
     key = "initial.sites" if kind == "meson" else "initial.kind"
-    if int(Q.sum() + params.charge_array().sum()) != 0:
+    if end_field(params, Q) != params.boundary_field:
         raise ConfigError("model.static_charges", params.to_dict()["static_charges"],
                           "total static charge must be zero for L_(N−1) = ε")
     fields = bare_fields(params, Q)

@@ -181,3 +181,14 @@ def test_successors_invert_the_site_occupation(params):
         succ = gauss.successors(params, link, left)
         occ = gauss.site_occupation(params, link, left if left is None else left[:, None], succ)
         assert np.all(occ == np.arange(2))
+
+
+def test_unbalanced_static_charge_is_refused_by_name():
+    # Gauss's law at the right end: L_(N−1) = ε + Σ (Q + q) must return to ε (zero total charge)
+    from lgt.errors import ConfigError
+    from lgt.states import resolve_initial
+    p = ModelParams(sites=6, static_charges=[[2, 1]])
+    assert gauss.end_field(p) == 1.0
+    assert gauss.count_physical_states(p) == 0
+    with pytest.raises(ConfigError, match="static_charges"):
+        resolve_initial({"kind": "vacuum"}, p)
