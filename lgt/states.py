@@ -161,7 +161,9 @@ def initial_fields(params: ModelParams, resolved: Mapping[str, Any]) -> np.ndarr
     key = "initial.sites" if kind == "meson" else "initial.kind"
     if end_field(params, Q) != params.boundary_field:
         raise ConfigError("model.static_charges", params.to_dict()["static_charges"],
-                          "total static charge must be zero for L_(N−1) = ε")
+                          f"the field would end at {end_field(params, Q):+g} instead of ε = "
+                          f"{params.boundary_field:+g}: the charges of this {kind} pattern do not cancel "
+                          "the static charges (total charge must be zero)")
     fields = bare_fields(params, Q)
     levels = fields + params.spin
     bad = np.flatnonzero((levels < 0) | (levels > params.levels - 1))
