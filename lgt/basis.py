@@ -1,31 +1,37 @@
-"""Physical subspace of the link register, built from Gauss's law (DESIGN §2).
+"""Physical subspace of the link register, built from Gauss's law (docs/conventions.md §2).
 
-Every physical state is a configuration of the K = N − 1 link fields whose implied
-occupations n_n = L_n − L_{n−1} − q_n + (1 − (−1)^n)/2 are all 0 or 1, with
-L_{−1} = L_{N−1} = ε. Configurations are grown site by site with numpy (never by looping
-over the d^K register), pruning those that leave the window or can no longer return to ε.
-Register convention: link n ↔ qudit n, level j = L_n + S, row-major code
-Σ_n j_n d^{K−1−n} (qudit 0 most significant).
+Every physical state is a configuration of the K = N − 1 link fields whose implied occupations
+are all 0 or 1 (the rule lives in :mod:`lgt.gauss`). Configurations are grown link by link with
+numpy (never by looping over the d^K register), keeping only prefixes that can still be completed
+(transfer-matrix counts), so the rows come out in row-major order and need no sort.
+Register convention: link n ↔ qudit n, level j = L_n + S, row-major code Σ_n j_n d^{K−1−n}
+(qudit 0 most significant). Lookups rank level rows with the transfer matrix
+(:class:`lgt.gauss.Ranking`), so they work for any d^K; register codes (int64) exist only when
+d^K fits.
 """
 
 from __future__ import annotations
 
+from functools import cached_property
+
 import numpy as np
 
+from lgt import gauss
 from lgt.errors import ConfigError, ResourceError
+from lgt.gauss import occupations_from_levels, staggering  # noqa: F401  (re-exported for old imports)
 from lgt.model import ModelParams
 
 #: Largest register code representable in int64.
 _MAX_CODE = np.iinfo(np.int64).max
 
 
-def staggering(sites: int) -> np.ndarray:
-    """(1 − (−1)^n)/2: 1 on odd sites, 0 on even sites."""
-    return np.arange(sites) % 2
+def register_fits_int64(d: int, K: int) -> bool:
+    """True when every register code Σ j_n d^{K−1−n} < d^K fits an int64."""
+    return d ** K - 1 <= _MAX_CODE
 
 
 def enumerate_levels(params: ModelParams) -> np.ndarray:
-    """All physical link configurations as level indices, shape (dim, K), sorted by code.
+    """All physical link configurations as level indices, shape (dim, K), int8, row-major order.
 
     Raises
     ------
@@ -33,44 +39,66 @@ def enumerate_levels(params: ModelParams) -> np.ndarray:
         If Gauss's law admits no configuration (e.g. ε or static charges incompatible with
         the window).
     """
-    N, K, d = params.sites, params.n_links, params.levels
-    q = params.charge_array()
-    odd = staggering(N)
-    step = q - odd  # j_n = j_{n-1} + n_n + step_n
-    # reachable change of the level from site n+1 to the end: [min, max]
-    suffix_min = np.concatenate([np.cumsum(step[::-1])[::-1][1:], [0]])
-    suffix_max = suffix_min + np.arange(N - 1, -1, -1)
-    eps = params.boundary_level
-    current = np.array([eps], dtype=np.int64)
-    history = np.zeros((1, 0), dtype=np.int8)
+    K, d = params.n_links, params.levels
+    counts = gauss.completion_counts(params)
+    current = np.array([params.boundary_level], dtype=np.int64)
+    parents, chosen = [], []
     for n in range(K):
-        nxt = np.concatenate([current + step[n], current + step[n] + 1])
-        src = np.concatenate([np.arange(current.size), np.arange(current.size)])
-        ok = (nxt >= 0) & (nxt < d)
-        ok &= (nxt + suffix_min[n] <= eps) & (eps <= nxt + suffix_max[n])
-        nxt, src = nxt[ok], src[ok]
-        history = np.concatenate([history[src], nxt[:, None].astype(np.int8)], axis=1)
-        current = nxt
-    # last site: j_{N-1} = j_{N-2} + n + step must equal ε with n ∈ {0, 1}
-    last = eps - current - step[N - 1]
-    keep = (last == 0) | (last == 1)
-    history = history[keep]
-    if history.shape[0] == 0:
+        # which of the two successors (n_n = 0, 1) of each level can still be completed
+        levels = np.arange(d) if n else current
+        succ = gauss.successors(params, n, levels)                       # (len(levels), 2)
+        inside = (succ >= 0) & (succ < d)
+        completable = np.array([c > 0 for c in counts[n]], dtype=bool)
+        alive = inside & completable[np.clip(succ, 0, d - 1)]
+        key = current if n else np.zeros(1, dtype=np.int64)
+        n_children = alive.sum(axis=1).astype(np.int8)[key]
+        # children of prefix i stay contiguous and ordered by level: row-major order is kept
+        src = np.repeat(np.arange(current.size, dtype=np.int32), n_children)
+        first = np.cumsum(n_children, dtype=np.int64) - n_children
+        pos = np.arange(src.size, dtype=np.int64) - first[src]
+        skip0 = (~alive[:, 0])[key]                                      # only the n_n = 1 child
+        occupation = pos + skip0[src]
+        start = succ[:, 0][key]
+        current = start[src] + occupation
+        parents.append(src)
+        chosen.append(current.astype(np.int8))
+    if current.size == 0:
         raise ConfigError("model", params.to_dict(),
                           "Gauss's law admits no physical state (check boundary_field, "
                           "static_charges and levels)")
-    codes = codes_of(history, d)
-    order = np.argsort(codes, kind="stable")
-    return np.ascontiguousarray(history[order])
+    table = np.empty((current.size, K), dtype=np.int8)
+    ptr = np.arange(current.size)
+    for n in range(K - 1, -1, -1):
+        table[:, n] = chosen[n][ptr]
+        ptr = parents[n][ptr]
+    return table
 
 
 def codes_of(levels: np.ndarray, d: int) -> np.ndarray:
-    """Row-major register codes Σ_n j_n d^{K−1−n} of level arrays of shape (M, K)."""
+    """Row-major register codes Σ_n j_n d^{K−1−n} of level arrays of shape (M, K).
+
+    Raises
+    ------
+    ResourceError
+        When d^K does not fit int64 codes (use level rows and :class:`PhysicalBasis` lookups).
+    """
     K = levels.shape[1]
-    if K * np.log(d) >= np.log(_MAX_CODE):
+    if not register_fits_int64(d, K):
         raise ResourceError(f"register d^K = {d}^{K} does not fit int64 codes")
     weights = d ** np.arange(K - 1, -1, -1, dtype=np.int64)
     return levels.astype(np.int64) @ weights
+
+
+def levels_of_codes(codes: np.ndarray, d: int, K: int) -> np.ndarray:
+    """Level rows (M, K) of row-major register codes (inverse of :func:`codes_of`; object-dtype
+    codes beyond int64 are accepted)."""
+    codes = np.asarray(codes)
+    codes = codes.copy() if codes.dtype == object else codes.astype(np.int64)
+    out = np.empty(codes.shape + (K,), dtype=np.int64)
+    for n in range(K - 1, -1, -1):
+        out[..., n] = codes % d
+        codes = codes // d
+    return out
 
 
 class PhysicalBasis:
@@ -79,16 +107,35 @@ class PhysicalBasis:
     Attributes
     ----------
     params : ModelParams
-    levels : (dim, K) int8 array
-        Level j_n = L_n + S of every link, rows sorted by register code.
-    codes : (dim,) int64 array
-        Register index of every basis state (ascending).
+    level_table : (dim, K) int8 array
+        Level j_n = L_n + S of every link, rows in row-major (register-code) order.
+    codes : (dim,) array
+        Register index of every basis state (ascending), computed on first use: int64 when d^K
+        fits, exact Python ints (object dtype) beyond.
+    ranking : lgt.gauss.Ranking
+        Transfer-matrix ranks: basis index of any physical level row.
     """
 
     def __init__(self, params: ModelParams) -> None:
         self.params = params
-        self.levels = enumerate_levels(params)
-        self.codes = codes_of(self.levels, params.levels)
+        self.level_table = enumerate_levels(params)
+        self.ranking = gauss.Ranking.of(params)
+
+    @property
+    def levels(self) -> np.ndarray:
+        """Deprecated alias of :attr:`level_table` (``levels`` is d in ModelParams); silent, so code
+        that turns warnings into errors keeps running until the callers are renamed."""
+        return self.level_table
+
+    @cached_property
+    def codes(self) -> np.ndarray:
+        """Register code of every state: int64 when d^K fits, else exact Python ints (object array,
+        slower; lookups and cuts do not need it — see :meth:`index_of_levels`, :meth:`cut_codes`)."""
+        d, K = self.params.levels, self.params.n_links
+        if register_fits_int64(d, K):
+            return codes_of(self.level_table, d)
+        weights = np.array([d ** (K - 1 - n) for n in range(K)], dtype=object)
+        return self.level_table.astype(object) @ weights
 
     def with_couplings(self, params: ModelParams) -> "PhysicalBasis":
         """The same basis (shared arrays) for a model that differs only in w, m, J, θ or link type.
@@ -102,50 +149,107 @@ class PhysicalBasis:
                 raise ValueError(f"{name} differs ({getattr(params, name)!r} vs {getattr(self.params, name)!r}); "
                                  "build a new PhysicalBasis")
         clone = object.__new__(PhysicalBasis)
-        clone.params, clone.levels, clone.codes = params, self.levels, self.codes
+        clone.__dict__.update(self.__dict__)
+        clone.params = params
         return clone
 
     # ------------------------------------------------------------------ sizes
     @property
     def dimension(self) -> int:
         """Number of physical states."""
-        return int(self.codes.size)
+        return int(self.level_table.shape[0])
 
     @property
     def register_dimension(self) -> int:
-        """d^K, the size of the full link register."""
+        """d^K, the size of the full link register (a Python int; may exceed int64)."""
         return int(self.params.levels) ** self.params.n_links
 
     # ------------------------------------------------------------------ per-state data
     def fields(self) -> np.ndarray:
         """Electric fields L_n of every state, shape (dim, K), float."""
-        return self.levels - self.params.spin
+        return self.level_table - self.params.spin
 
     def occupations(self) -> np.ndarray:
         """Fermion occupations n_n ∈ {0, 1} implied by Gauss's law, shape (dim, N), int8."""
-        return occupations_from_levels(self.levels, self.params)
+        return occupations_from_levels(self.level_table, self.params)
 
     def charges(self) -> np.ndarray:
         """Staggered dynamical charges Q_n = n_n − (1 − (−1)^n)/2, shape (dim, N)."""
         return self.occupations() - staggering(self.params.sites)[None, :].astype(np.int8)
 
     # ------------------------------------------------------------------ lookup
+    def index_of_levels(self, levels: np.ndarray) -> np.ndarray:
+        """Basis index of level rows (M, K); −1 where the row is not physical."""
+        levels = np.atleast_2d(np.asarray(levels, dtype=np.int64))
+        ok = gauss.is_physical(levels, self.params)
+        idx = self.ranking.rank(np.where(ok[:, None], levels, self.level_table[0]))
+        return np.where(ok, idx, -1)
+
+    def index_after_change(self, rows: np.ndarray, links: tuple[int, ...], new_levels: np.ndarray,
+                           levels_t: np.ndarray | None = None) -> np.ndarray:
+        """Basis index of states ``rows`` with the levels of contiguous ``links`` replaced by
+        ``new_levels`` (shape (len(rows), len(links))); −1 where the result is not physical.
+
+        Only the rank terms of the changed links and their right neighbour are recomputed, so the
+        cost is O(len(links)) per state whatever K. ``levels_t``: the transposed level table, when
+        the caller has one (faster gathers).
+        """
+        K = self.params.n_links
+        first, last = links[0], links[-1]
+        cols = self.level_table.T if levels_t is None else levels_t
+        old = {n: cols[n][rows].astype(np.intp) for n in range(max(first - 1, 0), min(last + 2, K))}
+        new_levels = np.asarray(new_levels, dtype=np.intp).reshape(len(rows), len(links))
+        delta, ok = self.rank_change(links, old, new_levels)
+        return np.where(ok, np.asarray(rows, dtype=np.int64) + delta, -1)
+
+    def rank_change(self, links: tuple[int, ...], old: dict[int, np.ndarray],
+                    new_levels: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(index change, still physical) when the levels of contiguous ``links`` go from ``old``
+        (columns of links first−1..last+1 that exist) to ``new_levels`` (M, len(links)).
+
+        Gauss's law fixes the basis index as a sum of per-link rank terms, so only the terms of
+        the changed links and of their right neighbour move.
+        """
+        K, d = self.params.n_links, self.params.levels
+        first, last = links[0], links[-1]
+        ok = np.all((new_levels >= 0) & (new_levels < d), axis=1)
+        new_levels = np.clip(new_levels, 0, d - 1)
+        new = dict(old)
+        new.update({n: new_levels[:, n - first] for n in range(first, last + 1)})
+        delta = np.zeros(len(new_levels), dtype=np.int64)
+        for n in range(first, min(last + 1, K - 1) + 1):
+            delta += self.ranking.contributions(n, new.get(n - 1, -1), new[n])
+            delta -= self.ranking.contributions(n, old.get(n - 1, -1), old[n])
+        for site in range(first, last + 2):
+            occ = gauss.site_occupation(self.params, site, new.get(site - 1), new.get(site))
+            ok &= (occ == 0) | (occ == 1)
+        return delta, ok
+
     def index_of_codes(self, codes: np.ndarray) -> np.ndarray:
         """Basis index of each register code; −1 where the code is not physical."""
-        codes = np.asarray(codes, dtype=np.int64)
-        pos = np.searchsorted(self.codes, codes)
-        pos = np.clip(pos, 0, self.dimension - 1)
-        return np.where(self.codes[pos] == codes, pos, -1)
+        codes = np.asarray(codes)
+        if codes.dtype != object:
+            codes = codes.astype(np.int64)
+        K, d = self.params.n_links, self.params.levels
+        inside = (codes >= 0) & (codes < self.register_dimension)
+        idx = self.index_of_levels(levels_of_codes(np.where(inside, codes, 0).ravel(), d, K))
+        return np.where(inside, idx.reshape(codes.shape), -1)
 
     def index_of_fields(self, fields: np.ndarray) -> np.ndarray:
         """Basis index of field configurations (shape (..., K)); −1 where not physical."""
         fields = np.atleast_2d(np.asarray(fields, dtype=float))
         levels = np.rint(fields + self.params.spin).astype(np.int64)
-        inside = np.all((levels >= 0) & (levels < self.params.levels), axis=1)
         on_grid = np.all(np.abs(fields + self.params.spin - levels) < 1e-9, axis=1)
-        idx = self.index_of_codes(codes_of(np.clip(levels, 0, self.params.levels - 1),
-                                           self.params.levels))
-        return np.where(inside & on_grid, idx, -1)
+        return np.where(on_grid, self.index_of_levels(levels), -1)
+
+    def cut_codes(self, cut: int) -> tuple[np.ndarray, np.ndarray]:
+        """Row-major codes of links 0..cut−1 and of links cut..K−1 of every state (two int64 arrays).
+
+        Equal to ``divmod(codes, d^(K−cut))`` but needs only d^cut and d^(K−cut) to fit int64, so
+        register cuts work where the whole register code does not.
+        """
+        d = self.params.levels
+        return codes_of(self.level_table[:, :cut], d), codes_of(self.level_table[:, cut:], d)
 
     # ------------------------------------------------------------------ register maps
     def to_register(self, vector: np.ndarray) -> np.ndarray:
@@ -176,16 +280,5 @@ class PhysicalBasis:
         return physical, max(total - kept, 0.0)
 
 
-def occupations_from_levels(levels: np.ndarray, params: ModelParams) -> np.ndarray:
-    """n_n = j_n − j_{n−1} − q_n + (1 − (−1)^n)/2 with j_{−1} = j_{N−1} = ε + S; shape (M, N).
-
-    Values outside {0, 1} flag register states that violate Gauss's law.
-    """
-    eps = params.boundary_level
-    M = levels.shape[0]
-    padded = np.empty((M, params.sites + 1), dtype=np.int16)
-    padded[:, 0] = eps
-    padded[:, -1] = eps
-    padded[:, 1:-1] = levels
-    occ = np.diff(padded, axis=1) - params.charge_array()[None, :] + staggering(params.sites)[None, :]
-    return occ.astype(np.int8)
+__all__ = ["PhysicalBasis", "enumerate_levels", "codes_of", "levels_of_codes", "register_fits_int64",
+           "occupations_from_levels", "staggering"]

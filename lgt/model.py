@@ -1,4 +1,4 @@
-"""Model parameters of the lattice Schwinger model (DESIGN §1), validated on construction.
+"""Model parameters of the lattice Schwinger model (docs/conventions.md §1), validated on construction.
 
 Lattice units throughout: energies in the units of the Hamiltonian couplings,
 times in inverse units of the same.

@@ -1,4 +1,4 @@
-"""Observables of physical-subspace states, computed from the basis arrays (DESIGN §3).
+"""Observables of physical-subspace states, computed from the basis arrays (docs/conventions.md §3).
 
 All take a state ψ on the physical basis (complex, length ``dim``). Conventions:
 
@@ -26,6 +26,7 @@ import scipy.linalg as sla
 import scipy.sparse as sp
 
 from circuits.blas_threads import single_threaded_blas
+from lgt import gauss
 from lgt.basis import PhysicalBasis, staggering
 from lgt.errors import ConfigError
 
@@ -66,17 +67,12 @@ def level_weights(levels_t: np.ndarray, prob: np.ndarray, d: int) -> np.ndarray:
 def occupations_from_mean_levels(mean_levels: np.ndarray, basis: PhysicalBasis,
                                  norm: float = 1.0) -> np.ndarray:
     """⟨n_n⟩ from ⟨j_n⟩ through the (linear) Gauss law; shape (N,). ``norm`` = ‖ψ‖²."""
-    p = basis.params
-    edge = p.boundary_level * norm
-    padded = np.concatenate([[edge], mean_levels, [edge]])
-    return np.diff(padded) + norm * (staggering(p.sites) - p.charge_array())
+    return gauss.occupations_from_mean_levels(mean_levels, basis.params, norm)
 
 
 def particle_density(occupation: np.ndarray) -> float:
     """ν = (1/N) Σ_n [n_n on even n, 1 − n_n on odd n]."""
-    occupation = np.asarray(occupation, dtype=float)
-    odd = staggering(occupation.size).astype(bool)
-    return float(np.where(odd, 1.0 - occupation, occupation).mean())
+    return float(gauss.particle_density(np.ravel(occupation)))
 
 
 def occupation_products(occupations: np.ndarray, prob: np.ndarray) -> np.ndarray:

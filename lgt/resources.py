@@ -8,40 +8,14 @@ from __future__ import annotations
 
 import os
 
-import numpy as np
-
-from lgt.basis import staggering
 from lgt.errors import ResourceError
+from lgt.gauss import count_physical_states
 from lgt.model import ModelParams
 
 #: Bytes of stored state vectors one propagation chunk may hold (used by lgt.evolution).
 CHUNK_BYTES = 256 * 2 ** 20
 #: Resident memory of the interpreter with numpy/scipy loaded (measured ~0.2 GiB).
 BASELINE_BYTES = 200 * 2 ** 20
-
-
-def count_physical_states(params: ModelParams) -> int:
-    """Dimension of the physical subspace by a transfer-matrix count over levels (no enumeration)."""
-    d, K = params.levels, params.n_links
-    step = params.charge_array() - staggering(params.sites)
-    eps = params.boundary_level
-    counts = np.zeros(d, dtype=object)
-    if not 0 <= eps < d:
-        return 0
-    counts[eps] = 1
-    for n in range(K):
-        new = np.zeros(d, dtype=object)
-        for occ in (0, 1):
-            shift = step[n] + occ
-            lo, hi = max(0, shift), min(d, d + shift)
-            if lo < hi:
-                new[lo:hi] += counts[lo - shift:hi - shift]
-        counts = new
-    total = 0
-    for j in range(d):
-        if eps - j - step[-1] in (0, 1):
-            total += counts[j]
-    return int(total)
 
 
 def estimate_memory(params: ModelParams, dimension: int, stored_vectors: int = 8) -> int:

@@ -1,4 +1,4 @@
-"""Initial states of a quench, from the ``[initial]`` TOML section (DESIGN §3).
+"""Initial states of a quench, from the ``[initial]`` TOML section (docs/conventions.md §3).
 
 Kinds
 -----
@@ -23,7 +23,8 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from lgt.basis import PhysicalBasis, occupations_from_levels
+from lgt.basis import PhysicalBasis
+from lgt.gauss import end_field, fields_from_charges, occupations_from_levels
 from lgt.config import as_choice, as_float, as_int, check_keys
 from lgt.errors import ConfigError
 from lgt.model import ModelParams
@@ -137,8 +138,7 @@ def _checked_overrides(section: Any, params: ModelParams) -> dict[str, float]:
 # ---------------------------------------------------------------------- construction
 def bare_fields(params: ModelParams, dynamical: np.ndarray | None = None) -> np.ndarray:
     """Fields L_n = ε + Σ_{k≤n} (Q_k + q_k), n = 0..K−1, for dynamical charges ``dynamical`` (length N)."""
-    Q = np.zeros(params.sites, dtype=np.int64) if dynamical is None else np.asarray(dynamical)
-    return params.boundary_field + np.cumsum(Q + params.charge_array())[: params.n_links].astype(float)
+    return fields_from_charges(params, dynamical)
 
 
 def initial_fields(params: ModelParams, resolved: Mapping[str, Any]) -> np.ndarray:
@@ -159,9 +159,11 @@ def initial_fields(params: ModelParams, resolved: Mapping[str, Any]) -> np.ndarr
         for s in (i, j):
             Q[s] = 1 if s % 2 == 0 else -1  # particle on even, antiparticle on odd
     key = "initial.sites" if kind == "meson" else "initial.kind"
-    if int(Q.sum() + params.charge_array().sum()) != 0:
+    if end_field(params, Q) != params.boundary_field:
         raise ConfigError("model.static_charges", params.to_dict()["static_charges"],
-                          "total static charge must be zero for L_(N−1) = ε")
+                          f"the field would end at {end_field(params, Q):+g} instead of ε = "
+                          f"{params.boundary_field:+g}: the charges of this {kind} pattern do not cancel "
+                          "the static charges (total charge must be zero)")
     fields = bare_fields(params, Q)
     levels = fields + params.spin
     bad = np.flatnonzero((levels < 0) | (levels > params.levels - 1))

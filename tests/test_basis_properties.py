@@ -54,7 +54,7 @@ def test_basis_equals_brute_force_count_and_obeys_gauss(params):
         return
     brute = brute_force_physical(params)
     assert basis.dimension == brute.shape[0]
-    np.testing.assert_array_equal(basis.levels, brute)  # same states, same (row-major) order
+    np.testing.assert_array_equal(basis.level_table, brute)  # same states, same (row-major) order
     occ = basis.occupations()
     assert np.all((occ == 0) | (occ == 1))
     # Gauss's law L_n - L_{n-1} = Q_n + q_n with L_{-1} = L_{N-1} = eps

@@ -1,4 +1,4 @@
-"""The three formulations of DESIGN §2 give identical spectra.
+"""The three formulations of docs/conventions.md §2 give identical spectra.
 
 (a) fermions ⊗ links restricted by Gauss's law, built with qutip tensor products and
     qutip's Jordan–Wigner ``fdestroy`` (qutip 5 as a general-purpose reference library);
@@ -55,7 +55,7 @@ def test_fermion_link_formulation_matches_production(N, d, link, charges, eps):
        w=st.floats(0.1, 2.0), m=st.floats(-1.0, 1.0), J=st.floats(0.1, 2.0),
        theta=st.floats(-3.0, 3.0), seed=st.integers(0, 10 ** 6))
 def test_spin_only_formulation_matches_production(N, d, ql, w, m, J, theta, seed):
-    # reference: independent spins-only construction (gauge field eliminated), DESIGN §2 (c)
+    # reference: independent spins-only construction (gauge field eliminated), docs/conventions.md §2 (c)
     link = "quantum-link" if (ql or d % 2 == 0) else "truncated"
     rng = np.random.default_rng(seed)
     charges = {}

@@ -41,7 +41,7 @@ def test_strong_coupling_lowest_excitation(N, m, J, d, link):
 @pytest.mark.parametrize("N", [4, 6, 8, 10])
 def test_wide_truncated_window_equals_untruncated_model(N):
     # |L| <= floor((N+2)/4) holds for every Gauss-law configuration without static charges, so a
-    # truncated window that wide is exact: compare with the untruncated spins-only model (DESIGN §2 c)
+    # truncated window that wide is exact: compare with the untruncated spins-only model (docs/conventions.md §2 c)
     S = (N + 2) // 4
     kw = dict(w=0.8, m=0.35, J=1.1, theta=0.6)
     p = ModelParams(sites=N, hopping=kw["w"], mass=kw["m"], coupling=kw["J"], theta=kw["theta"], levels=2 * S + 1)
@@ -105,7 +105,7 @@ def test_register_operator_from_qutip_tensor_products():
 
 def test_massless_schwinger_boson_mass():
     # Schwinger, Phys. Rev. 128, 2425 (1962): the massless model has a free boson of mass
-    # M/g = 1/sqrt(pi) ≈ 0.5642. Procedure (dimensionless form of DESIGN §1: J = 1, w = x,
+    # M/g = 1/sqrt(pi) ≈ 0.5642. Procedure (dimensionless form of docs/conventions.md §1: J = 1, w = x,
     # m = 0): N = 16 sites, d = 5 levels, x = 2, 4, 8. Gaps E_k in units of g are ΔE/(2√x). On
     # an open chain the lowest one-boson states carry box momenta p_1, p_2 = 2 p_1, so
     # E_1² = M² + p², E_2² = M² + 4p² gives M² = (4E_1² − E_2²)/3. M(x) is then extrapolated

@@ -1,4 +1,4 @@
-"""Initial states from ``[initial]``: field patterns follow Gauss's law (DESIGN §2–3); bad input is named."""
+"""Initial states from ``[initial]``: field patterns follow Gauss's law (docs/conventions.md §2–3); bad input is named."""
 
 from __future__ import annotations
 
@@ -30,17 +30,25 @@ def test_missing_section_means_vacuum():
     assert resolve_initial(None, p) == {"kind": "vacuum"}
 
 
-@pytest.mark.parametrize("sites,flux", [([2, 5], +1), ([5, 2], -1), ([3, 6], -1)])
+@pytest.mark.parametrize("sites,flux", [([2, 5], +1), ([5, 2], +1), ([3, 6], -1), ([6, 3], -1), ([0, 9], +1)])
 def test_meson_flux_and_charges(sites, flux):
+    # ``flux`` by hand: a particle (even site) on the left end sends flux +1 to the right, an
+    # antiparticle (odd site) on the left sends −1; the order in which the pair is listed is irrelevant
     p = ModelParams(sites=10)
     fields = initial_fields(p, resolve_initial({"kind": "meson", "sites": sites}, p))
     i, j = sorted(sites)
     expected = np.zeros(9)
-    # particle (even site) on the left → flux +1 between; antiparticle on the left → −1
-    expected[i:j] = +1 if i % 2 == 0 else -1
-    assert np.array_equal(fields, expected) and flux in (+1, -1)
-    Q = occupations(p, fields) - np.arange(10) % 2
-    assert Q[i] == (1 if i % 2 == 0 else -1) and Q[j] == -Q[i] and np.count_nonzero(Q) == 2
+    expected[i:j] = flux
+    np.testing.assert_array_equal(fields, expected)
+    # independent check: L_n = Σ_{k≤n} Q_k (Gauss's law, ε = 0, no static charges) summed by hand
+    Q = np.zeros(10, dtype=int)
+    Q[i], Q[j] = (1, -1) if i % 2 == 0 else (-1, 1)
+    running, by_hand = 0, []
+    for n in range(9):
+        running += Q[n]
+        by_hand.append(running)
+    np.testing.assert_array_equal(fields, by_hand)
+    np.testing.assert_array_equal(occupations(p, fields) - np.arange(10) % 2, Q)
 
 
 def test_several_mesons():

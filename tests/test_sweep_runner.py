@@ -41,7 +41,7 @@ def _cfg(text: str = BASE) -> dict:
 
 
 def _reference_levels(model: dict, count: int) -> np.ndarray:
-    """Independent check: dense eigenvalues of H written out from DESIGN §1 for N = 6, d = 3
+    """Independent check: dense eigenvalues of H written out from docs/conventions.md §1 for N = 6, d = 3
     (truncated links), by enumerating field configurations that satisfy Gauss's law."""
     p = ModelParams.from_dict(model)
     n, spin = p.sites, 1

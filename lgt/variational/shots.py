@@ -9,14 +9,14 @@ from __future__ import annotations
 
 import numpy as np
 
-from lgt.basis import PhysicalBasis, staggering
+from lgt.basis import PhysicalBasis
+from lgt.gauss import particle_density
 
 
 def diagonal_observable_tables(basis: PhysicalBasis) -> dict[str, np.ndarray]:
     """Per-basis-state values of the diagonal observables, each shape (dim, n_components)."""
     occ = basis.occupations().astype(float)
-    odd = staggering(basis.params.sites)
-    particles = np.where(odd[None, :] == 0, occ, 1.0 - occ).mean(axis=1, keepdims=True)
+    particles = particle_density(occ)[:, None]
     return {"electric_field": basis.fields(), "occupation": occ, "particle_density": particles}
 
 
