@@ -74,6 +74,14 @@ FIT_PLOTS = {"fidelity": "infidelity 1 − F(t) vs exact", "leakage": "leakage o
              "step_infidelity": "step infidelity"}
 
 
+def fit_tolerance(result: RunResult) -> float | None:
+    """The infidelity tolerance a fit was asked to meet (``[variational] tolerance``), if any."""
+    value = result.attributes.get("tolerance")
+    if value is None:
+        value = (result.parameters.get("variational") or {}).get("tolerance")
+    return None if value is None else float(value)
+
+
 def plot_run(result: RunResult, outdir: str | Path, overlay: RunResult | None = None,
              prefix: str = "") -> list[Path]:
     """Write PNGs for the observables present in ``result``; return the paths written.
@@ -93,6 +101,10 @@ def plot_run(result: RunResult, outdir: str | Path, overlay: RunResult | None = 
                 s = result.series[name]
                 y = 1.0 - np.asarray(s.values) if name == "fidelity" else np.asarray(s.values)
                 ax.semilogy(s.times[1:], np.maximum(y[1:], 1e-16), label=label)
+        tolerance = fit_tolerance(result)
+        if tolerance is not None:
+            ax.axhline(tolerance, color="k", linestyle=":", linewidth=1,
+                       label=f"tolerance {tolerance:g} on 1 − F")
         ax.set_xlabel("time t (lattice units)")
         ax.legend(fontsize=8)
         written.append(_save(fig, Path(outdir) / f"{prefix}fit_diagnostics.png"))
@@ -117,4 +129,4 @@ def _plot_pair(result: RunResult, overlay: RunResult | None, outdir: Path, prefi
     return written
 
 
-__all__ = ["plot_run", "split_fit", "draw_field_map", "draw_series", "LINE_PLOTS", "FIT_PLOTS"]
+__all__ = ["plot_run", "split_fit", "draw_field_map", "draw_series", "LINE_PLOTS", "FIT_PLOTS", "fit_tolerance"]

@@ -27,3 +27,7 @@ def test_fit_file_plots_exact_with_variational_overlay(tmp_path):
     names = {p.name for p in plot_run(result, tmp_path / "png")}
     assert {"electric_field_map.png", "electric_field_map_overlay.png", "particle_density.png",
             "fit_diagnostics.png"} <= names
+    # the diagnostics plot draws the requested tolerance (issue contract: a tolerance line)
+    from lgt.plots import fit_tolerance
+
+    assert fit_tolerance(result) == 1e-4

@@ -9,11 +9,11 @@ validated by the task's validator before anything runs.
 from __future__ import annotations
 
 import copy
-import hashlib
 import itertools
 from dataclasses import dataclass, field
 from typing import Any, Mapping
 
+from lgt import hashing
 from lgt.config import as_choice, check_keys, with_folder
 from lgt.errors import ConfigError, ResourceError
 from lgt.io import canonical_json, flatten
@@ -69,8 +69,8 @@ class SweepPlan:
 
 
 def digest(text: str, length: int = ID_LENGTH) -> str:
-    """Truncated hexadecimal sha256 of ``text``."""
-    return hashlib.sha256(text.encode()).hexdigest()[:length]
+    """Truncated hexadecimal sha256 of ``text`` (run ids: :data:`ID_LENGTH` hex digits)."""
+    return hashing.digest(text, length)
 
 
 def run_identity(task: str, resolved: Mapping[str, Any]) -> str:
