@@ -41,7 +41,7 @@ def _run(args: argparse.Namespace) -> int:
 
         write_run_file(args.output, result)
     if args.circuits:
-        export_circuits(resolved, result.arrays["parameters"], args.circuits)
+        export_circuits(resolved, result.arrays["parameters"], args.circuits, form=args.circuit_form)
     summary = fit_summary(result)
     if args.json:
         print(json.dumps(summary))
@@ -68,3 +68,5 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                        "TOML file with [model], [initial], [variational]", _run,
                        output_help="HDF5 file for the fitted trajectory")
     p.add_argument("--circuits", help="folder for one circuit JSON file per time step")
+    p.add_argument("--circuit-form", choices=("native", "generator"), default="native",
+                   help="native gates of the hardware profile (default) or generator exponentials (simulation)")
