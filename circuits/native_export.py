@@ -22,20 +22,16 @@ from .export import to_dict
 from .gates import Gate, gate_from_export
 from .native import NativeGateSet, block_fidelity, gate_block, is_native
 
-__all__ = ["NativeCircuit", "NativeCost", "native_circuit", "native_document", "block_key", "TWO_QUDIT_KEYS"]
+__all__ = ["NativeCircuit", "NativeCost", "NativeCounts", "native_circuit", "native_document", "block_key", "TWO_QUDIT_KEYS"]
 
 #: hardware keys of two-qudit gates
 TWO_QUDIT_KEYS = ("ms", "light_shift", "controlled_rotation", "diagonal2")
 
 
-@dataclass(frozen=True)
-class NativeCost:
-    """Gate counts by hardware key, predicted fidelity (product of gate fidelities) and ASAP
-    duration in microseconds of a native circuit."""
+class NativeCounts:
+    """Gate totals of a ``counts`` mapping keyed by hardware key."""
 
     counts: dict[str, int]
-    fidelity: float
-    duration_us: float
 
     @property
     def two_qudit(self) -> int:
@@ -44,6 +40,21 @@ class NativeCost:
     @property
     def single_qudit(self) -> int:
         return int(self.counts.get("rotation", 0) + self.counts.get("phase", 0))
+
+    @property
+    def other(self) -> int:
+        """Gates that are not native (generic ``generator`` exponentials)."""
+        return int(sum(v for k, v in self.counts.items() if k.startswith("generator")))
+
+
+@dataclass(frozen=True)
+class NativeCost(NativeCounts):
+    """Gate counts by hardware key, predicted fidelity (product of gate fidelities) and ASAP
+    duration in microseconds of a native circuit."""
+
+    counts: dict[str, int]
+    fidelity: float
+    duration_us: float
 
 
 @dataclass

@@ -34,7 +34,7 @@ from circuits.circuit import ParametrizedCircuit
 from circuits.gates import gate_from_export
 from circuits.hardware import HardwareProfile
 from circuits.native import NativeGateSet, block_fidelity, exponential_block
-from circuits.native_export import TWO_QUDIT_KEYS, NativeCost, native_circuit
+from circuits.native_export import NativeCost, NativeCounts, native_circuit
 from circuits.register import Space
 from lgt.hamiltonian import local_terms
 from lgt.model import ModelParams
@@ -46,25 +46,6 @@ CACHE_FILE = f"native_blocks_v{CACHE_FORMAT}.json"
 #: measured seconds to compile one interior hopping block, by d (2-core machine, loaded; see
 #: docs/circuits.md); used for the estimate printed before compiling
 SECONDS_PER_BLOCK = {2: 0.002, 3: 0.02, 4: 0.1, 5: 0.2, 6: 0.4, 7: 0.6}
-
-
-class NativeCounts:
-    """Gate totals of a ``counts`` mapping keyed by hardware key."""
-
-    counts: dict[str, int]
-
-    @property
-    def two_qudit(self) -> int:
-        return int(sum(v for k, v in self.counts.items() if k in TWO_QUDIT_KEYS))
-
-    @property
-    def single_qudit(self) -> int:
-        return int(self.counts.get("rotation", 0) + self.counts.get("phase", 0))
-
-    @property
-    def other(self) -> int:
-        """Gates that are not native (generic ``generator`` exponentials)."""
-        return int(sum(v for k, v in self.counts.items() if k.startswith("generator")))
 
 
 @dataclass(frozen=True)
@@ -226,6 +207,10 @@ def compile_blocks(params: ModelParams, gs: NativeGateSet, fidelity: float = 0.9
     return out
 
 
+__all__ = ["NativeCounts", "TermCost", "cache_dir", "compile_blocks", "model_term_costs", "summed_cost",
+           "uncompiled_blocks", "costs_by_block_kind", "exported_circuit_cost", "block_fields", "block_kind"]
+
+
 def uncompiled_blocks(params: ModelParams, gs: NativeGateSet) -> list[str]:
     """Block kinds of the model that neither the shipped nor the user cache holds."""
     cache = _load_cache()
@@ -246,7 +231,7 @@ def model_term_costs(params: ModelParams, spec, profile: HardwareProfile, fideli
     ``generator`` gate of the profile.
     """
     gs = profile.gate_set()
-    if not compile:
+    if not compile and profile.has("generator"):
         costs = {}
         for r in _requests(params, gs):
             if r.kind.startswith("hopping"):
