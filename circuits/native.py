@@ -114,6 +114,16 @@ def _level_map(d: int, src: tuple[int, int], dst: tuple[int, int]) -> np.ndarray
     return m
 
 
+def _det_phase(u: np.ndarray, rotations, phases) -> complex:
+    """``u[0, c] / v[0, c]`` for the product ``v`` of :func:`givens`' output (the dropped phase)."""
+    d = u.shape[0]
+    v = np.diag(np.exp(1j * phases))
+    for j, k, t, phi in rotations:
+        v = TwoLevelRotation(0, j, k, d, phi).unitary(t) @ v
+    i = np.unravel_index(np.argmax(np.abs(v)), v.shape)
+    return complex(u[i] / v[i])
+
+
 def givens(u: np.ndarray) -> list[tuple[int, int, float, float]] | tuple:
     """Two-level rotations and phases with product ``u`` up to a global phase.
 
@@ -152,6 +162,9 @@ class _Builder:
     d: int
     gs: NativeGateSet
     items: list = field(default_factory=list)
+    #: global phase exp(i (phase_scale * theta + phase_offset)) dropped by the items, restored at the end
+    phase_scale: float = 0.0
+    phase_offset: float = 0.0
 
     def u(self, q: int, mat: np.ndarray) -> None:
         self.items.append(("u", q, np.asarray(mat, dtype=np.complex128)))
@@ -226,6 +239,7 @@ class _Builder:
             if mat is None:
                 return
             rotations, phases = givens(mat)
+            self.phase_offset += float(np.angle(_det_phase(mat, rotations, phases)))
             if np.max(np.abs(np.angle(np.exp(1j * phases)))) > 1e-10:
                 out.append(DiagonalGate((q,), -phases, d), None, offset=1.0)
             for j, k, t, phi in rotations:
@@ -245,6 +259,10 @@ class _Builder:
                 out.append(gate, None, offset=offset)
         for q in sorted(pending):
             flush(q)
+        scale, offset = self.phase_scale, math.remainder(self.phase_offset, 2 * math.pi)
+        if abs(scale) > TOL or abs(offset) > 1e-12:  # a constant table: the global phase, exactly
+            out.append(DiagonalGate((0,), -np.ones(d), d), 0 if abs(scale) > TOL else None, scale=scale or 1.0,
+                       offset=offset)
         return out
 
 
@@ -263,6 +281,7 @@ def _diagonal2(b: _Builder, qa: int, qb: int, table: np.ndarray) -> None:
             if best is None or n < best[0]:
                 best = (n, ra, rb, coef)
     _, ra, rb, coef = best
+    b.phase_scale -= coef[0, 0]
     others_a = [p for p in range(d) if p != ra]
     others_b = [q for q in range(d) if q != rb]
     b.phase(qa, _basis(d, ra)[:, 1:] @ coef[1:, 0], 1.0)
@@ -386,7 +405,7 @@ def _check_levels(gs: NativeGateSet, d: int) -> None:
 
 
 def exponential_block(h: np.ndarray, k: int, d: int, gs: NativeGateSet) -> ParametrizedCircuit:
-    """Native circuit ``C(theta) = exp(-i theta h)`` (up to a global phase) for a ``k``-qudit
+    """Native circuit ``C(theta) = exp(-i theta h)`` (global phase included) for a ``k``-qudit
     Hermitian ``h`` (``d**k x d**k``, row-major over qudits ``0..k-1``).
 
     Raises :class:`NotDecomposable` for a structure the constructions do not cover.
@@ -402,11 +421,13 @@ def exponential_block(h: np.ndarray, k: int, d: int, gs: NativeGateSet) -> Param
         lam, vec = np.linalg.eigh(h)
         b.u(0, vec.conj().T)
         b.phase(0, lam - lam[0], 1.0)
+        b.phase_scale -= lam[0]
         b.u(0, vec)
         return b.circuit()
     if not offdiag:
         if k == 1:
             b.phase(0, diag - diag[0], 1.0)
+            b.phase_scale -= diag[0]
         elif k == 2:
             _diagonal2(b, 0, 1, diag.reshape(d, d))
         else:
@@ -414,6 +435,7 @@ def exponential_block(h: np.ndarray, k: int, d: int, gs: NativeGateSet) -> Param
         return b.circuit()
     if np.max(np.abs(diag - diag[0])) > TOL:
         raise NotDecomposable("pair generators with a non-constant diagonal")
+    b.phase_scale -= diag[0]
     pairs = _pairs(h, k, d)
     targets = {int(np.flatnonzero(a != bb)[0]) for a, bb, _ in pairs if np.count_nonzero(a != bb) == 1}
     if len(targets) != 1 or any(np.count_nonzero(a != bb) != 1 for a, bb, _ in pairs):
@@ -428,7 +450,7 @@ def exponential_block(h: np.ndarray, k: int, d: int, gs: NativeGateSet) -> Param
         return b.circuit()
     if k == 3:
         for x, y in (controls, controls[::-1]):
-            trial = _Builder(k, d, gs)
+            trial = _Builder(k, d, gs, phase_scale=b.phase_scale)
             try:
                 _multiplexed(trial, pairs, t, x, y)
             except NotDecomposable:

@@ -45,7 +45,7 @@ CACHE_FORMAT = 1
 CACHE_FILE = f"native_blocks_v{CACHE_FORMAT}.json"
 #: measured seconds to compile one interior hopping block, by d (2-core machine, loaded; see
 #: docs/circuits.md); used for the estimate printed before compiling
-SECONDS_PER_BLOCK = {2: 0.002, 3: 0.02, 4: 0.1, 5: 0.2, 6: 0.4, 7: 0.6}
+SECONDS_PER_BLOCK = {2: 0.005, 3: 0.03, 4: 0.1, 5: 0.2, 6: 0.5, 7: 1.0}
 
 
 @dataclass(frozen=True)
@@ -167,12 +167,13 @@ def estimate_seconds(n_blocks: int, d: int) -> float:
     return n_blocks * SECONDS_PER_BLOCK.get(d, 0.6 * (d / 7) ** 4)
 
 
-def compile_blocks(params: ModelParams, gs: NativeGateSet, fidelity: float = 0.999, progress: bool = False,
+def compile_blocks(params: ModelParams, gs: NativeGateSet, fidelity: float = 0.999, progress: bool | None = None,
                    store: bool = True) -> dict[str, tuple[ParametrizedCircuit, float]]:
     """The native block of every term of the model (label → (block, compile fidelity)).
 
     Distinct blocks missing from the caches are compiled (a time estimate and a progress bar on
-    stderr with ``progress``) and, with ``store``, added to the user cache. Raises
+    stderr with ``progress``; ``None``: when stderr is a terminal) and, with ``store``, added to
+    the user cache. Raises
     ``RuntimeError`` if a block misses ``fidelity`` (it should be exact to rounding).
     """
     cache = _load_cache()
@@ -182,6 +183,8 @@ def compile_blocks(params: ModelParams, gs: NativeGateSet, fidelity: float = 0.9
         key = _key(r.fields)
         if key not in cache and key not in missing:
             missing[key] = r
+    if progress is None:
+        progress = sys.stderr.isatty()
     if missing and progress:
         est = estimate_seconds(len(missing), params.levels)
         print(f"fluxline: compiling {len(missing)} native blocks (d = {params.levels}, about {est:.1f} s)",
@@ -208,7 +211,7 @@ def compile_blocks(params: ModelParams, gs: NativeGateSet, fidelity: float = 0.9
 
 
 __all__ = ["NativeCounts", "TermCost", "cache_dir", "compile_blocks", "model_term_costs", "summed_cost",
-           "uncompiled_blocks", "costs_by_block_kind", "exported_circuit_cost", "block_fields", "block_kind"]
+           "uncompiled_blocks", "uncompiled_hoppings", "costs_by_block_kind", "exported_circuit_cost", "block_fields", "block_kind"]
 
 
 def uncompiled_blocks(params: ModelParams, gs: NativeGateSet) -> list[str]:
@@ -217,13 +220,25 @@ def uncompiled_blocks(params: ModelParams, gs: NativeGateSet) -> list[str]:
     return sorted({r.kind for r in _requests(params, gs) if _key(r.fields) not in cache})
 
 
+def uncompiled_hoppings(params: ModelParams, spec=None, fidelity: float = 0.999,
+                        profile: HardwareProfile | None = None) -> list[int]:
+    """Links whose hopping block neither cache holds for ``profile``'s gate set (default: the
+    built-in profile); ``spec`` and ``fidelity`` are unused (older callers)."""
+    from circuits.hardware import load_profile
+
+    gs = (profile or load_profile()).gate_set()
+    cache = _load_cache()
+    return [int(r.label[len("hopping"):]) for r in _requests(params, gs)
+            if r.kind.startswith("hopping") and _key(r.fields) not in cache]
+
+
 def _block_cost(label: str, block: ParametrizedCircuit, fid: float, profile: HardwareProfile) -> TermCost:
     counts = Counter(op.gate.hardware_key for op in block.ops)
     return TermCost(label, dict(counts), profile.predicted_fidelity(block), profile.duration_us(block), 0, fid)
 
 
 def model_term_costs(params: ModelParams, spec, profile: HardwareProfile, fidelity: float = 0.999,
-                     compile: bool = True, seed: int = 0, progress: bool = False) -> dict[str, TermCost]:
+                     compile: bool = True, seed: int = 0, progress: bool | None = None) -> dict[str, TermCost]:
     """Native cost of every term exponential of the model, keyed ``"hopping3"``, ``"mass0"``, …
 
     ``spec`` and ``seed`` are unused (kept for callers; the blocks are constructed exactly from
@@ -246,7 +261,7 @@ def model_term_costs(params: ModelParams, spec, profile: HardwareProfile, fideli
 
 
 def costs_by_block_kind(params: ModelParams, profile: HardwareProfile, fidelity: float = 0.999,
-                        progress: bool = False) -> dict[str, TermCost]:
+                        progress: bool | None = None) -> dict[str, TermCost]:
     """One :class:`TermCost` per distinct block (``hopping-interior`` … ; the first of each kind)."""
     gs = profile.gate_set()
     blocks = compile_blocks(params, gs, fidelity, progress)
