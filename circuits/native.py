@@ -39,7 +39,7 @@ import scipy.linalg as sla
 
 from .blas_threads import single_threaded_blas
 from .circuit import ParametrizedCircuit
-from .gates import ControlledRotation, DiagonalGate, Gate, MSGate, TwoLevelRotation, zz_levels
+from .gates import ControlledRotation, DiagonalGate, Gate, MSGate, TwoLevelRotation
 from .register import Space
 
 __all__ = ["ENTANGLERS", "NativeGateSet", "NotDecomposable", "exponential_block", "gate_block",
@@ -460,16 +460,15 @@ def exponential_block(h: np.ndarray, k: int, d: int, gs: NativeGateSet) -> Param
 
 
 def is_native(gate: Gate, gs: NativeGateSet) -> bool:
-    """Whether the machine runs ``gate`` as one gate."""
-    if isinstance(gate, (TwoLevelRotation,)) or (isinstance(gate, DiagonalGate) and gate.locality == 1):
+    """Whether the machine runs ``gate`` as one gate (asks the gate its hardware key and levels)."""
+    key = gate.hardware_key
+    if key in ("rotation", "phase"):
         return True
-    if isinstance(gate, ControlledRotation):
-        return gs.controlled_rotation
-    if isinstance(gate, MSGate):
-        return gs.ms is not None and (gate.j, gate.k) == tuple(gs.ms)
-    if isinstance(gate, DiagonalGate) and gate.locality == 2:
-        return gs.diagonal2 or (gs.light_shift is not None and zz_levels(gate.h) == tuple(gs.light_shift))
-    return False
+    levels = tuple(gate.export().get("levels", ()))
+    return {"controlled_rotation": gs.controlled_rotation,
+            "ms": gs.ms is not None and levels == tuple(gs.ms),
+            "light_shift": gs.diagonal2 or (gs.light_shift is not None and levels == tuple(gs.light_shift)),
+            "diagonal2": gs.diagonal2}.get(key, False)
 
 
 def gate_block(gate: Gate, gs: NativeGateSet) -> ParametrizedCircuit:
@@ -478,9 +477,10 @@ def gate_block(gate: Gate, gs: NativeGateSet) -> ParametrizedCircuit:
     if k == 0:
         raise NotDecomposable("subspace-mode gates act on no register")
     _check_levels(gs, d)
-    if isinstance(gate, MSGate):
+    if gate.hardware_key == "ms":  # P (x) P pairs differ on both qudits: its own construction
+        entry = gate.export()
         b = _Builder(2, d, gs)
-        b.ms(MSGate((0, 1), gate.j, gate.k, d, gate.phi), 1.0, 0.0)
+        b.ms(MSGate((0, 1), *entry["levels"], d, entry["phase"]), 1.0, 0.0)
         return b.circuit()
     return exponential_block(gate.generator(), k, d, gs)
 

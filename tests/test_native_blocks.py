@@ -9,6 +9,7 @@ from importlib import resources
 import numpy as np
 import pytest
 import scipy.linalg as sla
+from hypothesis import given, settings, strategies as st
 from scipy.stats import unitary_group
 
 from circuits.blas_threads import single_threaded_blas
@@ -292,3 +293,46 @@ def test_compile_command_fills_cache(tmp_path, monkeypatch):
     assert "hopping-interior" in data["compiled"] and data["blocks"]["hopping-interior"]["two_qudit_gates"] > 0
     assert (tmp_path / "cache" / "native_blocks_v1.json").is_file()
     assert json.loads(run_cli("compile", str(cfg), "--json").stdout)["compiled"] == []
+
+
+# -- property tests ---------------------------------------------------------------------------
+
+@st.composite
+def pair_generators(draw):
+    """Random two-qudit generators made of disjoint pairs that differ on the target qudit only,
+    with complex amplitudes and a constant diagonal (the structure of hopping terms)."""
+    d = draw(st.integers(2, 4))
+    target = draw(st.integers(0, 1))
+    h = np.zeros((d * d, d * d), dtype=complex)
+    used: set[int] = set()
+    for c in range(d):
+        for _ in range(draw(st.integers(0, d // 2))):
+            la, lb = draw(st.lists(st.integers(0, d - 1), min_size=2, max_size=2, unique=True))
+            cfg_a = (c, la) if target == 1 else (la, c)
+            cfg_b = (c, lb) if target == 1 else (lb, c)
+            a, b = np.ravel_multi_index(cfg_a, (d, d)), np.ravel_multi_index(cfg_b, (d, d))
+            if a in used or b in used:
+                continue
+            used |= {a, b}
+            w = draw(st.floats(0.1, 2.0)) * np.exp(1j * draw(st.floats(-np.pi, np.pi)))
+            h[a, b], h[b, a] = w, np.conj(w)
+    return d, h + draw(st.floats(-1, 1)) * np.eye(d * d)
+
+
+@settings(max_examples=40, deadline=None)
+@given(pair_generators(), st.floats(-10, 10), st.sampled_from(sorted(GATE_SETS)))
+def test_random_pair_generators_are_exact(case, theta, entangler):
+    # reference: scipy.linalg.expm, element by element
+    d, h = case
+    block = exponential_block(h, 2, d, GATE_SETS[entangler])
+    np.testing.assert_allclose(block.unitary(np.array([theta])), sla.expm(-1j * theta * h), atol=1e-9)
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.integers(2, 5), st.data(), st.sampled_from(sorted(GATE_SETS)))
+def test_random_two_qudit_diagonals_are_exact(d, data, entangler):
+    # reference: the phases exp(-i theta table) themselves
+    table = np.array(data.draw(st.lists(st.floats(-3, 3), min_size=d * d, max_size=d * d)))
+    theta = data.draw(st.floats(-5, 5))
+    block = exponential_block(np.diag(table), 2, d, GATE_SETS[entangler])
+    np.testing.assert_allclose(block.unitary(np.array([theta])), np.diag(np.exp(-1j * theta * table)), atol=1e-9)
