@@ -420,14 +420,12 @@ def exponential_block(h: np.ndarray, k: int, d: int, gs: NativeGateSet) -> Param
     if k == 1 and offdiag:
         lam, vec = np.linalg.eigh(h)
         b.u(0, vec.conj().T)
-        b.phase(0, lam - lam[0], 1.0)
-        b.phase_scale -= lam[0]
+        b.phase(0, lam, 1.0)
         b.u(0, vec)
         return b.circuit()
     if not offdiag:
         if k == 1:
-            b.phase(0, diag - diag[0], 1.0)
-            b.phase_scale -= diag[0]
+            b.phase(0, diag, 1.0)
         elif k == 2:
             _diagonal2(b, 0, 1, diag.reshape(d, d))
         else:
