@@ -326,8 +326,10 @@ def _multiplexed(b: _Builder, pairs, t: int, x: int, y: int) -> None:
     cx = [int(a[x]) for a, _, _ in pairs]
     if len(set(cx)) != len(cx):
         raise NotDecomposable("several pairs share a control level")
-    sets = Counter(frozenset((int(a[t]), int(bb[t]))) for a, bb, _ in pairs)
-    j, k = sorted(max(sets, key=lambda s: (sets[s], -min(s))))
+    sets = [frozenset((int(a[t]), int(bb[t]))) for a, bb, _ in pairs]
+    # common target pair: fewest controlled transpositions (2 - overlap per moved pair)
+    j, k = min(((j, k) for j in range(d) for k in range(j + 1, d)),
+               key=lambda jk: sum(0 if s == set(jk) else 2 - len(s & set(jk)) for s in sets))
     ty = Counter(int(a[y]) for a, _, _ in pairs).most_common(1)[0][0]
     plan = []  # (control level, qudit, (u, v), phi)
     phis = []
@@ -389,10 +391,14 @@ def _multiplexed(b: _Builder, pairs, t: int, x: int, y: int) -> None:
     if abs(alpha0) > TOL:
         b.cr(y, ty, t, j, k, phi0, 2 * alpha0)
     for v in rest:
-        for c in groups[v]:
+        # sigma_L = -sigma_(complement of L): flip the smaller set
+        flip, sign = groups[v], 1.0
+        if 2 * len(flip) > d:
+            flip, sign = [c for c in range(d) if c not in groups[v]], -1.0
+        for c in flip:
             b.cr(x, c, t, j, k, phi0 + math.pi / 2, 0.0, math.pi)
-        b.cr(y, ty, t, j, k, phi0, -(v - vm))
-        for c in groups[v]:
+        b.cr(y, ty, t, j, k, phi0, -sign * (v - vm))
+        for c in flip:
             b.cr(x, c, t, j, k, phi0 + math.pi / 2, 0.0, -math.pi)
     for c, q, (u, v), ph in reversed(plan):
         b.cr(x, c, q, min(u, v), max(u, v), ph, 0.0, -math.pi)
