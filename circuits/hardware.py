@@ -137,21 +137,32 @@ class HardwareProfile:
         """Spec of a gate."""
         return self.spec_for(gate.hardware_key)
 
-    def gate_set(self, entangler: str | None = None) -> NativeGateSet:
-        """The native gate set compilation may use. ``entangler`` forces one of
+    def gate_set(self, d: int | None = None, entangler: str | None = None) -> NativeGateSet:
+        """The native gate set compilation may use on qudits of ``d`` levels (entanglers whose
+        ``levels`` do not exist at ``d`` are left out). ``entangler`` forces one of
         :data:`circuits.native.ENTANGLERS`; default: a controlled rotation if present, else the
-        higher-fidelity of light-shift and MS (light-shift on a tie)."""
-        have = [e for e in ENTANGLERS if self.has(e)]
+        higher-fidelity of light-shift and MS (light-shift on a tie). Raises :class:`ProfileError`
+        if no two-qudit gate fits."""
+        def fits(e: str) -> bool:
+            lv = self.spec_for(e).levels
+            return d is None or lv is None or max(lv) < d
+
+        have = [e for e in ENTANGLERS if self.has(e) and fits(e)]
+        if not have:
+            raise ProfileError("hardware.gates", sorted(self.gates),
+                               f"no two-qudit gate acts on levels that qudits of d = {d} have")
         if entangler is None:
             if "controlled_rotation" in have:
                 entangler = "controlled_rotation"
             else:
-                entangler = max((e for e in have if e != "controlled_rotation"),
-                                key=lambda e: (self.spec_for(e).fidelity, e == "light_shift"))
+                entangler = max(have, key=lambda e: (self.spec_for(e).fidelity, e == "light_shift"))
         elif entangler not in have:
-            raise KeyError(f"hardware profile {self.name!r} has no {entangler!r} gate")
+            raise ProfileError("hardware.gates", sorted(self.gates), f"has no usable {entangler!r} gate")
         levels = self.spec_for(entangler).levels or (0, 1)
-        return NativeGateSet(entangler, tuple(levels), diagonal2=self.has("diagonal2"))
+        ms = self.spec_for("ms").levels if "ms" in have else None
+        light = self.spec_for("light_shift").levels or (0, 1) if "light_shift" in have else None
+        return NativeGateSet(entangler, tuple(levels), diagonal2=self.has("diagonal2"), ms=ms,
+                             light_shift=light, controlled_rotation="controlled_rotation" in have)
 
     def predicted_fidelity(self, circuit: ParametrizedCircuit) -> float:
         """Product of the fidelities of all gates."""

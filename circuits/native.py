@@ -80,11 +80,9 @@ class NativeGateSet:
             object.__setattr__(self, "controlled_rotation", True)
 
     def identity(self) -> str:
-        """Explicit text naming the gate set (cache keys)."""
-        ms = "-" if self.ms is None else f"{self.ms[0]}{self.ms[1]}"
-        ls = "-" if self.light_shift is None else f"{self.light_shift[0]}{self.light_shift[1]}"
-        return (f"entangler={self.entangler}:{self.levels[0]}{self.levels[1]};ms={ms};light_shift={ls};"
-                f"controlled_rotation={int(self.controlled_rotation)};diagonal2={int(self.diagonal2)}")
+        """Explicit text naming what the blocks of :func:`exponential_block` depend on (cache keys)."""
+        return (f"entangler={self.entangler};levels={self.levels[0]},{self.levels[1]};"
+                f"diagonal2={int(self.diagonal2)}")
 
 
 def _pauli(j: int, k: int, d: int, phi: float) -> np.ndarray:

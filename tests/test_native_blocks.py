@@ -358,3 +358,21 @@ def test_version_1_documents_still_read():
     want = (np.kron(np.eye(3), np.diag(np.exp(-0.2j * np.arange(3)))) @ sla.expm(-0.3j * np.kron(x12, x12))
             @ np.kron(sla.expm(-0.2j * x02), np.eye(3)))
     np.testing.assert_allclose(c.unitary(None), want, atol=1e-12)
+
+
+def test_gate_set_leaves_out_entanglers_on_missing_levels():
+    doc = with_gate("ms", {"duration_us": 100.0, "fidelity": 0.995, "levels": [1, 2]})
+    assert HardwareProfile.from_dict(doc).gate_set(3).entangler == "ms"
+    with pytest.raises(ProfileError) as err:  # d = 2 qudits have no level 2
+        HardwareProfile.from_dict(doc).gate_set(2)
+    assert err.value.key == "hardware.gates"
+    doc["hardware"]["gates"]["light_shift"] = {"duration_us": 200.0, "fidelity": 0.99}
+    gs = HardwareProfile.from_dict(doc).gate_set(2)
+    assert gs.entangler == "light_shift" and gs.ms is None and gs.light_shift == (0, 1)
+
+
+def test_compile_progress_prints_estimate(tmp_path, monkeypatch, capsys):
+    monkeypatch.setenv("FLUXLINE_CACHE_DIR", str(tmp_path))
+    compile_blocks(ModelParams(sites=4, levels=4, link="quantum-link"), load_profile().gate_set(4), progress=True)
+    err = capsys.readouterr().err
+    assert "compiling" in err and "about" in err and "block" in err

@@ -26,7 +26,7 @@ def _run(args: argparse.Namespace) -> int:
     params = ModelParams.from_dict(resolved["model"])
     settings = resolved["variational"]
     profile = load_profile(settings.get("hardware_profile"))
-    gate_set = profile.gate_set()
+    gate_set = profile.gate_set(params.levels)
     missing = uncompiled_blocks(params, gate_set)
     t0 = time.perf_counter()
     costs = costs_by_block_kind(params, profile, settings["compile_fidelity"],

@@ -24,6 +24,7 @@ import tempfile
 import time
 from collections import Counter
 from dataclasses import dataclass
+from functools import lru_cache
 from importlib import resources
 from pathlib import Path
 from typing import Any, Iterable
@@ -82,13 +83,15 @@ def _read_json(path) -> dict:
     return data if isinstance(data, dict) and data.get("format") == CACHE_FORMAT else {}
 
 
+@lru_cache(maxsize=1)
 def _shipped() -> dict:
+    """Blocks shipped with the package (read once; never written at run time)."""
     return _read_json(resources.files("lgt").joinpath("data/compiled_blocks.json")).get("blocks", {})
 
 
 def _load_cache() -> dict:
     """Shipped blocks overlaid by the user's cache (key → entry)."""
-    blocks = dict(_shipped())
+    blocks = dict(_shipped() or {})
     blocks.update(_read_json(_cache_file()).get("blocks", {}))
     return blocks
 
@@ -226,7 +229,7 @@ def uncompiled_hoppings(params: ModelParams, spec=None, fidelity: float = 0.999,
     built-in profile); ``spec`` and ``fidelity`` are unused (older callers)."""
     from circuits.hardware import load_profile
 
-    gs = (profile or load_profile()).gate_set()
+    gs = (profile or load_profile()).gate_set(params.levels)
     cache = _load_cache()
     return [int(r.label[len("hopping"):]) for r in _requests(params, gs)
             if r.kind.startswith("hopping") and _key(r.fields) not in cache]
@@ -245,7 +248,7 @@ def model_term_costs(params: ModelParams, spec, profile: HardwareProfile, fideli
     the profile's gate set). With ``compile=False`` a hopping exponential is costed as one generic
     ``generator`` gate of the profile.
     """
-    gs = profile.gate_set()
+    gs = profile.gate_set(params.levels)
     if not compile and profile.has("generator"):
         costs = {}
         for r in _requests(params, gs):
@@ -263,7 +266,7 @@ def model_term_costs(params: ModelParams, spec, profile: HardwareProfile, fideli
 def costs_by_block_kind(params: ModelParams, profile: HardwareProfile, fidelity: float = 0.999,
                         progress: bool | None = None) -> dict[str, TermCost]:
     """One :class:`TermCost` per distinct block (``hopping-interior`` … ; the first of each kind)."""
-    gs = profile.gate_set()
+    gs = profile.gate_set(params.levels)
     blocks = compile_blocks(params, gs, fidelity, progress)
     out: dict[str, TermCost] = {}
     for r in _requests(params, gs):
@@ -276,7 +279,7 @@ def costs_by_block_kind(params: ModelParams, profile: HardwareProfile, fidelity:
 def exported_circuit_cost(circuit: ParametrizedCircuit, params: np.ndarray, profile: HardwareProfile) -> tuple[NativeCost, float]:
     """(cost, compile fidelity) of the native circuit a lab would run for ``circuit`` at ``params``
     (register mode): the counts, duration and predicted fidelity of the exported gates."""
-    native = native_circuit(circuit, params, profile.gate_set())
+    native = native_circuit(circuit, params, profile.gate_set(circuit.space.d))
     return native.cost(profile), native.compile_fidelity
 
 

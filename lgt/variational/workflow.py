@@ -146,7 +146,7 @@ def export_circuits(resolved: Mapping[str, Any], parameters: np.ndarray, outdir:
     outdir = Path(outdir)
     outdir.mkdir(parents=True, exist_ok=True)
     initial = initial_state_document(basis, psi0)
-    gate_set, blocks = profile.gate_set(), {}
+    gate_set, blocks = profile.gate_set(params.levels), {}
     paths = []
     for k, row in enumerate(np.atleast_2d(parameters)):
         if form == "native":
