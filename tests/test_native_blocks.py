@@ -376,3 +376,21 @@ def test_compile_progress_prints_estimate(tmp_path, monkeypatch, capsys):
     compile_blocks(ModelParams(sites=4, levels=4, link="quantum-link"), load_profile().gate_set(4), progress=True)
     err = capsys.readouterr().err
     assert "compiling" in err and "about" in err and "block" in err
+
+
+def test_fit_cli_writes_native_by_default_and_generator_on_request(tmp_path, monkeypatch):
+    monkeypatch.setenv("FLUXLINE_CACHE_DIR", str(tmp_path / "cache"))
+    cfg = tmp_path / "fit.toml"
+    cfg.write_text("[model]\nsites = 4\nlevels = 3\nmass = 0.5\n[initial]\nkind = 'vacuum'\n"
+                   "[variational]\nlayers = 1\ndt = 0.1\nt_final = 0.2\ntolerance = 0.1\n")
+    for form, extra in (("native", ()), ("generator", ("--circuit-form", "generator"))):
+        out = run_cli("fit", str(cfg), "--json", "--circuits", str(tmp_path / form), *extra)
+        assert out.returncode == 0, out.stderr
+        doc = json.loads((tmp_path / form / "step_0002.json").read_text())
+        kinds = {g["kind"] for g in doc["gates"]}
+        assert doc["form"] == form
+        if form == "native":
+            assert kinds <= {"two_level_rotation", "virtual_phase", "light_shift_phase"}
+            assert all("duration_us" in g for g in doc["gates"]) and doc["hardware_profile"]["sha256"]
+        else:
+            assert "generator" in kinds
