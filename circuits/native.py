@@ -112,21 +112,12 @@ def _level_map(d: int, src: tuple[int, int], dst: tuple[int, int]) -> np.ndarray
     return m
 
 
-def _det_phase(u: np.ndarray, rotations, phases) -> complex:
-    """``u[0, c] / v[0, c]`` for the product ``v`` of :func:`givens`' output (the dropped phase)."""
-    d = u.shape[0]
-    v = np.diag(np.exp(1j * phases))
-    for j, k, t, phi in rotations:
-        v = TwoLevelRotation(0, j, k, d, phi).unitary(t) @ v
-    i = np.unravel_index(np.argmax(np.abs(v)), v.shape)
-    return complex(u[i] / v[i])
+def givens(u: np.ndarray) -> tuple[list[tuple[int, int, float, float]], np.ndarray, float]:
+    """Two-level rotations and phases whose product is ``u``: ``(rotations, phases, gamma)``.
 
-
-def givens(u: np.ndarray) -> list[tuple[int, int, float, float]] | tuple:
-    """Two-level rotations and phases with product ``u`` up to a global phase.
-
-    Returns ``(rotations, phases)``: apply ``diag(exp(i phases))`` first, then
-    ``R^{jk}(t, phi)`` for each ``(j, k, t, phi)`` in order.
+    Apply ``diag(exp(i phases))`` (``phases[0] = 0``) first, then ``R^{jk}(t, phi)`` for each
+    ``(j, k, t, phi)`` in order; the product is ``exp(-i gamma) u`` (``gamma`` the global phase
+    left out).
     """
     d = u.shape[0]
     v = np.array(u, dtype=np.complex128)
@@ -146,9 +137,8 @@ def givens(u: np.ndarray) -> list[tuple[int, int, float, float]] | tuple:
             v = g @ v
             found.append((col, row, t, phi))
     phases = np.angle(np.diagonal(v))
-    phases = phases - phases[0]
     # u = G_1^dag ... G_n^dag D: apply D, then G_n^dag ... G_1^dag (R(t)^dag = R(-t))
-    return [(j, k, -t, phi) for j, k, t, phi in reversed(found)], phases
+    return [(j, k, -t, phi) for j, k, t, phi in reversed(found)], phases - phases[0], float(phases[0])
 
 
 @dataclass
@@ -236,8 +226,8 @@ class _Builder:
             mat = pending.pop(q, None)
             if mat is None:
                 return
-            rotations, phases = givens(mat)
-            self.phase_offset += float(np.angle(_det_phase(mat, rotations, phases)))
+            rotations, phases, gamma = givens(mat)
+            self.phase_offset += gamma
             if np.max(np.abs(np.angle(np.exp(1j * phases)))) > 1e-10:
                 out.append(DiagonalGate((q,), -phases, d), None, offset=1.0)
             for j, k, t, phi in rotations:
