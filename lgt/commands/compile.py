@@ -11,6 +11,7 @@ from __future__ import annotations
 import argparse
 import json
 import time
+from pathlib import Path
 
 from lgt.commands import config_command
 from lgt.config import load_config
@@ -25,7 +26,7 @@ def _run(args: argparse.Namespace) -> int:
     resolved = validate_variational_config(load_config(args.config))
     params = ModelParams.from_dict(resolved["model"])
     settings = resolved["variational"]
-    profile = load_profile(settings.get("hardware_profile"))
+    profile = load_profile(settings.get("hardware_profile"), relative_to=Path(args.config).parent)
     gate_set = profile.gate_set(params.levels)
     missing = uncompiled_blocks(params, gate_set)
     t0 = time.perf_counter()
