@@ -394,3 +394,18 @@ def test_fit_cli_writes_native_by_default_and_generator_on_request(tmp_path, mon
             assert all("duration_us" in g for g in doc["gates"]) and doc["hardware_profile"]["sha256"]
         else:
             assert "generator" in kinds
+
+
+@pytest.mark.parametrize("entangler", sorted(GATE_SETS))
+def test_brickwork_from_the_gate_set_is_already_native(entangler):
+    # the hardware family's layer built from the machine's own entangler passes the native
+    # export unchanged (same gates, same unitary; reference: the engine's own dense unitary)
+    from circuits.layers import layer_spec_for, native_brickwork
+    from circuits.native_export import native_circuit
+
+    gs = GATE_SETS[entangler]
+    circuit = native_brickwork(3, 3, 2, layer_spec_for(gs))
+    params = np.random.default_rng(1).normal(size=circuit.n_params)
+    native = native_circuit(circuit, params, gs)
+    assert len(native.circuit.ops) == len(circuit.ops)
+    np.testing.assert_allclose(native.circuit.unitary(None), circuit.unitary(params), atol=1e-12)
