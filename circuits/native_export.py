@@ -9,7 +9,7 @@ native gates themselves.
 """
 from __future__ import annotations
 
-import json
+import hashlib
 import math
 from collections import Counter
 from dataclasses import dataclass
@@ -71,10 +71,9 @@ class NativeCircuit:
 
 
 def block_key(gate: Gate, gs: NativeGateSet) -> str:
-    """Explicit key of a gate's block: its export on qudits ``0..k-1``, d and the gate set."""
-    entry = gate.export()
-    entry["qudits"] = list(range(gate.locality))
-    return json.dumps({"d": gate.d, "gate": entry, "gate_set": gs.identity()}, sort_keys=True)
+    """Explicit key of a gate's block: d, locality, a SHA-256 of its generator and the gate set."""
+    digest = hashlib.sha256(np.round(np.asarray(gate.generator(), dtype=np.complex128), 12).tobytes()).hexdigest()
+    return f"d={gate.d};k={gate.locality};generator_sha256={digest};{gs.identity()}"
 
 
 def _placed(gate: Gate, qudits: Sequence[int]) -> Gate:
@@ -95,20 +94,23 @@ def native_circuit(circuit: ParametrizedCircuit, params: Sequence[float] | None,
     blocks = {} if blocks is None else blocks
     out = ParametrizedCircuit(circuit.space)
     worst = 1.0
+    placed: dict[int, list[Gate]] = {}  # per gate object: its block's gates on its qudits
+    keys: dict[int, str] = {}
     for op, t in zip(circuit.ops, circuit.angles(params)):
         gate = op.gate
         if is_native(gate, gs):
             out.append(gate, None, offset=float(t), layer=op.layer)
             continue
-        key = block_key(gate, gs)
-        if key not in blocks:
-            block = gate_block(gate, gs)
-            local = gate.generator()
-            blocks[key] = (block, block_fidelity(block, local))
-        block, fid = blocks[key]
+        if id(gate) not in keys:
+            keys[id(gate)] = key = block_key(gate, gs)
+            if key not in blocks:
+                block = gate_block(gate, gs)
+                blocks[key] = (block, block_fidelity(block, gate.generator()))
+            placed[id(gate)] = [_placed(bop.gate, gate.qudits) for bop in blocks[key][0].ops]
+        block, fid = blocks[keys[id(gate)]]
         worst = min(worst, fid)
-        for bop, bt in zip(block.ops, block.angles(np.array([t]))):
-            out.append(_placed(bop.gate, gate.qudits), None, offset=float(bt), layer=op.layer)
+        for g, bt in zip(placed[id(gate)], block.angles(np.array([t]))):
+            out.append(g, None, offset=float(bt), layer=op.layer)
     return NativeCircuit(out, worst)
 
 
