@@ -18,8 +18,9 @@ from typing import NamedTuple, Sequence
 
 import numpy as np
 
+from .blas_threads import single_threaded_blas
 from .fused import FusedRegisterCircuit
-from .gates import Gate, _pairs_apply, _pairs_backward
+from .gates import Gate, pairs_apply, pairs_backward
 from .register import Space, from_view, to_view
 
 __all__ = ["Op", "ParametrizedCircuit"]
@@ -364,10 +365,10 @@ class ParametrizedCircuit:
             op, t, form = ops[i], angles[i], forms[i]
             if kept[i] is not None:
                 if form is not None:
-                    psi = _pairs_apply(form, psi, t, keep=kept[i], tmp=tmp)
+                    psi = pairs_apply(form, psi, t, keep=kept[i], tmp=tmp)
                     continue
                 np.copyto(kept[i], psi.reshape(-1))
-            psi = op.gate.apply(psi, t) if form is None else _pairs_apply(form, psi, t, tmp=tmp)
+            psi = op.gate.apply(psi, t) if form is None else pairs_apply(form, psi, t, tmp=tmp)
         f = complex(np.vdot(lam, psi))
         ovs = np.zeros(n, dtype=np.complex128)
         for i in range(n - 1, first - 1, -1):
@@ -377,16 +378,16 @@ class ParametrizedCircuit:
                 live = i > cut  # state still needed below this gate
                 if op.index is None:
                     if live:
-                        psi = op.gate.apply(psi, -t) if form is None else _pairs_apply(form, psi, -t, tmp=tmp)
+                        psi = op.gate.apply(psi, -t) if form is None else pairs_apply(form, psi, -t, tmp=tmp)
                 elif form is not None:
-                    ovs[i] = _pairs_backward(form, lam, t, unapply, tmp, psi=psi, unapply_psi=live)
+                    ovs[i] = pairs_backward(form, lam, t, unapply, tmp, psi=psi, unapply_psi=live)
                     continue
                 else:
                     ovs[i] = op.gate.generator_overlap(lam, psi)
                     if live:
                         psi = op.gate.apply(psi, -t)
             elif form is not None and op.index is not None:
-                ovs[i] = _pairs_backward(form, lam, t, unapply, tmp, kept=kept[i])
+                ovs[i] = pairs_backward(form, lam, t, unapply, tmp, kept=kept[i])
                 kept[i] = None
                 continue
             elif op.index is not None:
@@ -395,7 +396,7 @@ class ParametrizedCircuit:
                 kept[i] = None
                 continue
             if unapply:
-                lam = op.gate.apply(lam, -t) if form is None else _pairs_apply(form, lam, -t, tmp=tmp)
+                lam = op.gate.apply(lam, -t) if form is None else pairs_apply(form, lam, -t, tmp=tmp)
                 lam = np.ascontiguousarray(lam)
         return f, ovs
 
@@ -432,4 +433,5 @@ class ParametrizedCircuit:
     def unitary(self, params: Sequence[float] | None) -> np.ndarray:
         """Dense ``dim x dim`` matrix of the circuit (small spaces only; tests)."""
         eye = np.eye(self.space.dim, dtype=np.complex128)
-        return self.apply(params, eye).T
+        with single_threaded_blas():  # many small products: threads only contend (see blas_threads)
+            return self.apply(params, eye).T

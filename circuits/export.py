@@ -1,62 +1,39 @@
 """JSON export/import of circuits with resolved angles (schema: docs/circuits.md).
 
-A document is ``{"format": "fluxline-qudit-circuit", "version": 1, "space": ...,
-"gates": [...]}``; every gate carries its resolved angle ``t`` of ``exp(-i t G)``.
+A document is ``{"format": "fluxline-qudit-circuit", "version": 2, "space": ...,
+"gates": [...]}``; every gate carries its resolved angle ``t`` of ``exp(-i t G)`` (radians)
+and its JSON entry from :meth:`circuits.gates.Gate.export` (one taxonomy, in the gate classes).
 Import gives a circuit of fixed gates (no parameters) that reproduces the state.
 """
 from __future__ import annotations
 
 import json
-from typing import Any, Sequence
+from typing import Any, Callable, Sequence
 
 import numpy as np
 import scipy.sparse as sp
 
 from .circuit import ParametrizedCircuit
-from .gates import DiagonalGate, Gate, GeneratorGate, MSGate, TwoLevelRotation
+from .gates import Gate, gate_from_export
 from .register import Space
 from .sparse_gates import SparseGeneratorGate
 
 __all__ = ["FORMAT", "VERSION", "CircuitFormatError", "to_dict", "from_dict", "to_json", "from_json"]
 
 FORMAT = "fluxline-qudit-circuit"
-VERSION = 1
+VERSION = 2
+#: versions :func:`from_dict` reads (version 1 named gates ``rotation``/``ms``/``diagonal``)
+READABLE_VERSIONS = (1, 2)
 
 
 class CircuitFormatError(ValueError):
     """An exported circuit document is malformed."""
 
 
-def _complex_matrix(mat: np.ndarray) -> dict[str, list]:
-    return {"real": np.real(mat).tolist(), "imag": np.imag(mat).tolist()}
-
-
-def _gate_dict(gate: Gate) -> dict[str, Any]:
-    if isinstance(gate, TwoLevelRotation):
-        return {"kind": "rotation", "qudits": list(gate.qudits), "levels": [gate.j, gate.k], "phase": gate.phi}
-    if isinstance(gate, MSGate):
-        return {"kind": "ms", "qudits": list(gate.qudits), "levels": [gate.j, gate.k], "phase": gate.phi}
-    if isinstance(gate, DiagonalGate):
-        return {"kind": "diagonal", "qudits": list(gate.qudits), "table": gate.h.tolist()}
-    if isinstance(gate, GeneratorGate):
-        return {"kind": "generator", "qudits": list(gate.qudits), "generator": _complex_matrix(gate.g)}
-    if isinstance(gate, SparseGeneratorGate):
-        coo = sp.coo_matrix(gate.g)
-        return {
-            "kind": "sparse_generator",
-            "label": gate.label,
-            "generator": {
-                "rows": coo.row.tolist(),
-                "cols": coo.col.tolist(),
-                "real": coo.data.real.tolist(),
-                "imag": coo.data.imag.tolist(),
-            },
-        }
-    raise TypeError(f"cannot export gate of type {type(gate).__name__}")
-
-
-def to_dict(circuit: ParametrizedCircuit, params: Sequence[float] | None = None) -> dict[str, Any]:
-    """Document for ``circuit`` at ``params`` (angles resolved)."""
+def to_dict(circuit: ParametrizedCircuit, params: Sequence[float] | None = None,
+            duration: Callable[[Gate], float] | None = None) -> dict[str, Any]:
+    """Document for ``circuit`` at ``params`` (angles resolved, radians); ``duration(gate)``
+    (microseconds) adds a ``duration_us`` field to every gate."""
     space = circuit.space
     if space.register:
         sdoc: dict[str, Any] = {"mode": "register", "n_qudits": space.n_qudits, "levels": space.d}
@@ -64,9 +41,11 @@ def to_dict(circuit: ParametrizedCircuit, params: Sequence[float] | None = None)
         sdoc = {"mode": "subspace", "dim": space.dim}
     gates = []
     for op, t in zip(circuit.ops, circuit.angles(params)):
-        entry = _gate_dict(op.gate)
+        entry = op.gate.export()
         entry["angle"] = float(t)
         entry["layer"] = op.layer
+        if duration is not None:
+            entry["duration_us"] = float(duration(op.gate))
         gates.append(entry)
     return {"format": FORMAT, "version": VERSION, "space": sdoc, "gates": gates}
 
@@ -96,34 +75,30 @@ def _space(doc: dict) -> Space:
 
 def _gate(entry: dict, space: Space, where: str) -> Gate:
     kind = _need(entry, "kind", where)
-    d = space.d
     if kind == "sparse_generator":
         g = _need(entry, "generator", where)
         vals = _matrix(g, where + ".generator")
         rows, cols = _need(g, "rows", where), _need(g, "cols", where)
         mat = sp.coo_matrix((vals, (rows, cols)), shape=(space.dim, space.dim))
         return SparseGeneratorGate(mat, label=str(entry.get("label", "")))
-    qudits = [int(q) for q in _need(entry, "qudits", where)]
-    if kind in ("rotation", "ms"):
-        j, k = (int(x) for x in _need(entry, "levels", where))
-        phi = float(entry.get("phase", 0.0))
-        if kind == "rotation":
-            if len(qudits) != 1:
-                raise CircuitFormatError(f"{where}: rotation needs one qudit")
-            return TwoLevelRotation(qudits[0], j, k, d, phi)
-        return MSGate(qudits, j, k, d, phi)
-    if kind == "diagonal":
-        return DiagonalGate(qudits, np.asarray(_need(entry, "table", where), dtype=float), d)
+    for key in ("qudits",) + {"generator": ("generator",), "diagonal": ("table",),
+                              "virtual_phase": ("table",)}.get(kind, ("levels",)):
+        _need(entry, key, where)
     if kind == "generator":
-        return GeneratorGate(qudits, _matrix(_need(entry, "generator", where), where + ".generator"), d)
-    raise CircuitFormatError(f"{where}: unknown gate kind {kind!r}")
+        _matrix(entry["generator"], where + ".generator")
+    try:
+        return gate_from_export(entry, space.d)
+    except KeyError as err:
+        raise CircuitFormatError(f"{where}: missing field {err}") from None
+    except ValueError as err:
+        raise CircuitFormatError(f"{where}: {err}") from None
 
 
 def from_dict(doc: dict[str, Any]) -> ParametrizedCircuit:
     """Circuit of fixed gates from a document; raises :class:`CircuitFormatError`."""
     if _need(doc, "format", "document") != FORMAT:
         raise CircuitFormatError(f"document: format is {doc['format']!r}, expected {FORMAT!r}")
-    if _need(doc, "version", "document") != VERSION:
+    if _need(doc, "version", "document") not in READABLE_VERSIONS:
         raise CircuitFormatError(f"document: unsupported version {doc['version']!r}")
     space = _space(doc)
     circuit = ParametrizedCircuit(space)

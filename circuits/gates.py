@@ -15,6 +15,13 @@ Two-level operators on levels ``j < k`` of one qudit::
 * :class:`DiagonalGate` ``exp(-i t diag(h))`` for a ``k``-local real table ``h`` of shape
   ``(d,)*k`` (single-qudit phases, light-shift / controlled-phase type two-qudit gates).
 * :class:`GeneratorGate` ``exp(-i t G)`` for any dense ``k``-local Hermitian ``G``.
+* :class:`ControlledRotation` ``exp(-i t |c><c| (x) P/2)``: a two-level rotation on the target
+  qudit when the control qudit is at level ``c``.
+
+Taxonomy (one place): every gate class states its ``kind`` (count class ``single`` / ``two`` /
+``generator``), its ``hardware_key`` (profile entry, see :mod:`circuits.hardware`) and
+``export()`` (its JSON entry without the angle, see :mod:`circuits.export`);
+:func:`gate_from_export` is the inverse.
 
 Gates act on canonical views ``(B, d, ..., d)`` (see :mod:`circuits.register`).
 ``apply`` may work in place and returns the result.
@@ -37,8 +44,31 @@ __all__ = [
     "MSGate",
     "DiagonalGate",
     "GeneratorGate",
+    "ControlledRotation",
     "local_gate",
+    "pairs_apply",
+    "pairs_backward",
+    "gate_from_export",
+    "zz_levels",
 ]
+
+
+def complex_matrix(mat: np.ndarray) -> dict[str, list]:
+    """``{"real": ..., "imag": ...}`` nested lists of a complex matrix (JSON)."""
+    return {"real": np.real(mat).tolist(), "imag": np.imag(mat).tolist()}
+
+
+def zz_levels(table: np.ndarray) -> tuple[int, int] | None:
+    """Levels ``(j, k)`` if a ``d x d`` table is ``Z^{jk} (x) Z^{jk}`` (a light-shift phase), else None."""
+    t = np.asarray(table, dtype=float)
+    if t.ndim != 2 or t.shape[0] != t.shape[1]:
+        return None
+    nz = np.flatnonzero(np.abs(np.diagonal(t)) > 1e-12)
+    if nz.size != 2:
+        return None
+    z = np.zeros(t.shape[0])
+    z[nz[0]], z[nz[1]] = 1.0, -1.0
+    return (int(nz[0]), int(nz[1])) if np.allclose(t, np.outer(z, z), atol=1e-12) else None
 
 
 def two_level_ops(j: int, k: int, d: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -97,7 +127,7 @@ class _PairForm(NamedTuple):
         return math.cos(self.freq * t), -1j * math.sin(self.freq * t)
 
     def nbytes(self, view: np.ndarray) -> int:
-        """Bytes kept by :func:`_pairs_apply` with ``keep`` for this view."""
+        """Bytes kept by :func:`pairs_apply` with ``keep`` for this view."""
         return 2 * len(self.pairs) * self.slice_size(view) * view.itemsize
 
     def slice_size(self, view: np.ndarray) -> int:
@@ -105,7 +135,7 @@ class _PairForm(NamedTuple):
         return view.size // int(np.prod(self.shape[1::2]))
 
 
-def _pairs_apply(
+def pairs_apply(
     form: _PairForm, view: np.ndarray, t: float, keep: np.ndarray | None = None, tmp: np.ndarray | None = None
 ) -> np.ndarray:
     """``U(t)`` on a canonical view in place, slice by slice; returns the view.
@@ -156,7 +186,7 @@ def _pairs_overlap(form: _PairForm, lam: np.ndarray, psi: np.ndarray) -> complex
     return form.gain * complex(ov)
 
 
-def _pairs_backward(
+def pairs_backward(
     form: _PairForm,
     lam: np.ndarray,
     t: float,
@@ -170,7 +200,7 @@ def _pairs_backward(
 
     ``lam`` is the costate after the gate (contiguous canonical view, un-applied in
     place when ``unapply``); ``tmp`` is flat scratch of at least six slices.  The state
-    comes either as ``kept`` (pre-gate slices from :func:`_pairs_apply`) or as the
+    comes either as ``kept`` (pre-gate slices from :func:`pairs_apply`) or as the
     post-gate view ``psi`` (un-applied in place when ``unapply_psi``).  Returns
     ``<lam|G|psi>`` (with ``kept``: ``<lam_post|U G|psi_pre>``, the same number since
     ``G`` commutes with ``U``).
@@ -235,6 +265,15 @@ class Gate(ABC):
     kind: str = "generator"
     qudits: tuple[int, ...] = ()
     d: int = 0
+
+    @property
+    def hardware_key(self) -> str:
+        """Hardware-profile entry of this gate (``generator`` for non-native exponentials)."""
+        return "generator"
+
+    def export(self) -> dict:
+        """JSON entry of the gate without its angle (see :mod:`circuits.export`)."""
+        return {"kind": "generator", "qudits": list(self.qudits), "generator": complex_matrix(self.generator())}
 
     @property
     def locality(self) -> int:
@@ -305,6 +344,7 @@ class TwoLevelRotation(Gate):
     """
 
     kind = "single"
+    hardware_key = "rotation"
 
     def __init__(self, qudit: int, j: int, k: int, d: int, phi: float = 0.0) -> None:
         two_level_ops(j, k, d)  # validates
@@ -315,6 +355,10 @@ class TwoLevelRotation(Gate):
         x, y, _ = two_level_ops(self.j, self.k, self.d)
         return 0.5 * (np.cos(self.phi) * x + np.sin(self.phi) * y)
 
+    def export(self) -> dict:
+        return {"kind": "two_level_rotation", "qudits": list(self.qudits), "levels": [self.j, self.k],
+                "phase": self.phi}
+
     def _make_pair_form(self, shape: tuple[int, ...]) -> _PairForm:
         q = self.qudits[0]
         rest = int(np.prod(shape[q + 1 :], dtype=np.int64))
@@ -322,7 +366,7 @@ class TwoLevelRotation(Gate):
         return _PairForm((-1, self.d, rest), (((slice(None), self.j), (slice(None), self.k), w),), 0.5, 0.5)
 
     def apply(self, view: np.ndarray, t: float) -> np.ndarray:
-        return _pairs_apply(self._pair_form(view.shape[1:]), view, t)
+        return pairs_apply(self._pair_form(view.shape[1:]), view, t)
 
     def generator_overlap(self, lam: np.ndarray, psi: np.ndarray) -> complex:
         return _pairs_overlap(self._pair_form(psi.shape[1:]), np.ascontiguousarray(lam), np.ascontiguousarray(psi))
@@ -362,6 +406,7 @@ class MSGate(Gate):
     """
 
     kind = "two"
+    hardware_key = "ms"
 
     def __init__(self, qudits: Sequence[int], j: int, k: int, d: int, phi: float = 0.0) -> None:
         two_level_ops(j, k, d)
@@ -376,6 +421,10 @@ class MSGate(Gate):
         p = np.cos(self.phi) * x + np.sin(self.phi) * y
         return np.kron(p, p)
 
+    def export(self) -> dict:
+        return {"kind": "molmer_sorensen", "qudits": list(self.qudits), "levels": [self.j, self.k],
+                "phase": self.phi}
+
     def _make_pair_form(self, shape: tuple[int, ...]) -> _PairForm:
         q1, q2 = sorted(self.qudits)
         mid = int(np.prod(shape[q1 + 1 : q2], dtype=np.int64))
@@ -389,7 +438,7 @@ class MSGate(Gate):
         return _PairForm((-1, self.d, mid, self.d, rest), pairs, 1.0, 1.0)
 
     def apply(self, view: np.ndarray, t: float) -> np.ndarray:
-        return _pairs_apply(self._pair_form(view.shape[1:]), view, t)
+        return pairs_apply(self._pair_form(view.shape[1:]), view, t)
 
     def _make_plan(self, shape: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         # pairs (jj, kk) and (jk, kj) stacked; weight 1/e2 resp. 1 on the first member
@@ -445,6 +494,24 @@ class DiagonalGate(Gate):
         table = np.asarray(table, dtype=np.float64).reshape((d,) * len(q))
         self.qudits, self.d, self.h = q, int(d), table
         self.kind = {1: "single", 2: "two"}.get(len(q), "generator")
+
+    @property
+    def hardware_key(self) -> str:
+        """``phase`` (virtual single-qudit phase), ``light_shift`` (``Z^{jk} (x) Z^{jk}`` table),
+        ``diagonal2`` (any other two-qudit table) or ``generator``."""
+        if self.locality == 1:
+            return "phase"
+        if self.locality == 2:
+            return "light_shift" if zz_levels(self.h) is not None else "diagonal2"
+        return "generator"
+
+    def export(self) -> dict:
+        if self.locality == 1:
+            return {"kind": "virtual_phase", "qudits": list(self.qudits), "table": self.h.tolist()}
+        levels = zz_levels(self.h) if self.locality == 2 else None
+        if levels is not None:
+            return {"kind": "light_shift_phase", "qudits": list(self.qudits), "levels": list(levels)}
+        return {"kind": "diagonal", "qudits": list(self.qudits), "table": self.h.tolist()}
 
     def generator(self) -> np.ndarray:
         return np.diag(self.h.ravel()).astype(np.complex128)
@@ -508,6 +575,61 @@ class GeneratorGate(Gate):
 
     def generator_overlap(self, lam: np.ndarray, psi: np.ndarray) -> complex:
         return complex(np.sum(self.g * local_transition(lam, psi, self.qudits)))
+
+
+class ControlledRotation(GeneratorGate):
+    """``exp(-i t |c><c| (x) (cos phi X^{jk} + sin phi Y^{jk})/2)`` on ``(control, target)``.
+
+    At ``t = pi`` with the control at level ``c`` the target's levels ``j, k`` are swapped
+    (``|j> -> -i e^{i phi}|k>``); other control levels leave the target alone.
+    """
+
+    kind = "two"
+    hardware_key = "controlled_rotation"
+
+    def __init__(self, control: int, target: int, c: int, j: int, k: int, d: int, phi: float = 0.0) -> None:
+        x, y, _ = two_level_ops(j, k, d)
+        if not 0 <= c < d:
+            raise ValueError(f"control level {c} outside 0..{d - 1}")
+        proj = np.zeros((d, d))
+        proj[c, c] = 1.0
+        super().__init__((control, target), np.kron(proj, 0.5 * (np.cos(phi) * x + np.sin(phi) * y)), d)
+        self.c, self.j, self.k, self.phi = int(c), int(j), int(k), float(phi)
+
+    def export(self) -> dict:
+        return {"kind": "controlled_rotation", "qudits": list(self.qudits), "control_level": self.c,
+                "levels": [self.j, self.k], "phase": self.phi}
+
+
+def gate_from_export(entry: dict, d: int) -> Gate:
+    """Gate of an :meth:`Gate.export` entry on qudits of ``d`` levels (``KeyError``/``ValueError``
+    on a malformed entry). Kinds of format version 1 (``rotation``, ``ms``) are accepted."""
+    kind = entry["kind"]
+    qudits = [int(q) for q in entry["qudits"]]
+    phase = float(entry.get("phase", 0.0))
+    if kind in ("two_level_rotation", "rotation", "molmer_sorensen", "ms", "controlled_rotation",
+                "light_shift_phase"):
+        j, k = (int(x) for x in entry["levels"])
+    if kind in ("two_level_rotation", "rotation"):
+        if len(qudits) != 1:
+            raise ValueError("a two-level rotation needs one qudit")
+        return TwoLevelRotation(qudits[0], j, k, d, phase)
+    if kind in ("molmer_sorensen", "ms"):
+        return MSGate(qudits, j, k, d, phase)
+    if kind == "controlled_rotation":
+        if len(qudits) != 2:
+            raise ValueError("a controlled rotation needs two qudits")
+        return ControlledRotation(qudits[0], qudits[1], int(entry["control_level"]), j, k, d, phase)
+    if kind == "light_shift_phase":
+        z = np.zeros(d)
+        z[j], z[k] = 1.0, -1.0
+        return DiagonalGate(qudits, np.outer(z, z), d)
+    if kind in ("virtual_phase", "diagonal"):
+        return DiagonalGate(qudits, np.asarray(entry["table"], dtype=float), d)
+    if kind == "generator":
+        g = entry["generator"]
+        return GeneratorGate(qudits, np.asarray(g["real"], float) + 1j * np.asarray(g["imag"], float), d)
+    raise ValueError(f"unknown gate kind {kind!r}")
 
 
 def local_gate(qudits: Sequence[int], g: np.ndarray, d: int) -> Gate:

@@ -19,12 +19,14 @@ from typing import Callable, Sequence
 import numpy as np
 
 from .circuit import ParametrizedCircuit
-from .gates import DiagonalGate, Gate, MSGate, TwoLevelRotation
+from .gates import ControlledRotation, DiagonalGate, Gate, MSGate, TwoLevelRotation
+from .native import NativeGateSet
 from .register import Space
 from .terms import Term, term_gates
 
 __all__ = [
     "NativeLayerSpec",
+    "layer_spec_for",
     "LayerBuilder",
     "native_layer_builder",
     "generator_layer_builder",
@@ -50,9 +52,13 @@ class NativeLayerSpec:
         Real diagonal tables ``h`` (length ``d``), each a gate ``exp(-i theta diag(h))``
         on every qudit after the rotations.
     entangler
-        ``"ms"`` or ``"diagonal"``.
+        ``"ms"``, ``"diagonal"`` or ``"controlled_rotation"``.
     ms_levels, ms_phi
-        Level pair and phase of the MS entangler.
+        Level pair and phase of the MS entangler (target pair of the controlled rotation).
+    control_level
+        Control level of the controlled-rotation entangler.
+    diagonal_levels
+        Levels ``(j, k)`` of the default diagonal entangler ``Z^{jk} (x) Z^{jk}`` (a light-shift phase).
     diagonal_table
         ``d x d`` real table of the diagonal entangler (default ``Z^{01} (x) Z^{01}``).
     """
@@ -63,12 +69,24 @@ class NativeLayerSpec:
     ms_levels: tuple[int, int] = (0, 1)
     ms_phi: float = 0.0
     diagonal_table: tuple[tuple[float, ...], ...] | None = None
+    control_level: int = 0
+    diagonal_levels: tuple[int, int] = (0, 1)
 
     def resolved_rotations(self, d: int) -> tuple[tuple[int, int, float], ...]:
         """Rotation list with the default filled in for ``d`` levels."""
         if self.rotations is not None:
             return tuple(self.rotations)
         return tuple((j, j + 1, phi) for j in range(d - 1) for phi in (0.0, np.pi / 2))
+
+
+def layer_spec_for(gs: NativeGateSet) -> NativeLayerSpec:
+    """Brickwork layer whose entangler is the machine's own: its light-shift gate (``Z (x) Z`` on
+    its levels), else its MS gate, else a controlled rotation on levels (0, 1)."""
+    if gs.light_shift is not None:
+        return NativeLayerSpec(entangler="diagonal", diagonal_levels=tuple(gs.light_shift))
+    if gs.ms is not None:
+        return NativeLayerSpec(entangler="ms", ms_levels=tuple(gs.ms))
+    return NativeLayerSpec(entangler="controlled_rotation")
 
 
 def _native_gates(space: Space, spec: NativeLayerSpec) -> tuple[list[Gate], list[Gate]]:
@@ -85,13 +103,16 @@ def _native_gates(space: Space, spec: NativeLayerSpec) -> tuple[list[Gate], list
     elif spec.entangler == "diagonal":
         if spec.diagonal_table is None:
             z = np.zeros(d)
-            z[0], z[1] = 1.0, -1.0
+            z[spec.diagonal_levels[0]], z[spec.diagonal_levels[1]] = 1.0, -1.0
             table = np.outer(z, z)
         else:
             table = np.asarray(spec.diagonal_table, dtype=float)
         ents = [DiagonalGate(b, table, d) for b in bonds]
+    elif spec.entangler == "controlled_rotation":
+        j, k = spec.ms_levels
+        ents = [ControlledRotation(b[0], b[1], spec.control_level, j, k, d, spec.ms_phi) for b in bonds]
     else:
-        raise ValueError(f"unknown entangler {spec.entangler!r} (use 'ms' or 'diagonal')")
+        raise ValueError(f"unknown entangler {spec.entangler!r} (use 'ms', 'diagonal' or 'controlled_rotation')")
     return singles, ents
 
 

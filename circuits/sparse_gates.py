@@ -114,6 +114,12 @@ class SparseGeneratorGate(Gate):
 
     kind = "generator"
 
+    def export(self) -> dict:
+        coo = sp.coo_matrix(self.g)
+        return {"kind": "sparse_generator", "label": self.label,
+                "generator": {"rows": coo.row.tolist(), "cols": coo.col.tolist(),
+                              "real": coo.data.real.tolist(), "imag": coo.data.imag.tolist()}}
+
     def __init__(self, g, max_block: int = 64, label: str = "", atol: float = 1e-10,
                  dense_below: int | None = None) -> None:
         mat = sp.csr_matrix(g, dtype=np.complex128)

@@ -17,7 +17,7 @@ from lgt import __version__
 from lgt.errors import FluxlineError, exit_status, message
 
 #: Subcommand modules under ``lgt.commands``; each exposes ``register(subparsers)``.
-COMMAND_MODULES = ("demo", "spectrum", "evolve", "potential", "plot", "fit", "size", "sweep", "runs")
+COMMAND_MODULES = ("demo", "spectrum", "evolve", "potential", "plot", "fit", "size", "sweep", "runs", "compile")
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -44,7 +44,7 @@ def _run(args: argparse.Namespace) -> int:
     result = get_task("fit").run(resolved, progress=not args.quiet)
     write_output(args, result)
     if args.circuits:
-        export_circuits(resolved, result.arrays["parameters"], args.circuits)
+        export_circuits(resolved, result.arrays["parameters"], args.circuits, form=args.circuit_form)
     settings = resolved["variational"]
     summary = fit_summary(result)
     summary["tolerance"] = settings["tolerance"]
@@ -75,3 +75,5 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                        "TOML file with [model], [initial], [variational]", _run,
                        output_help="HDF5 file for the fitted trajectory")
     p.add_argument("--circuits", help="folder for one circuit JSON file per time step")
+    p.add_argument("--circuit-form", choices=("native", "generator"), default="native",
+                   help="native gates of the hardware profile (default) or generator exponentials (simulation)")

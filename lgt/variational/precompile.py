@@ -1,16 +1,17 @@
-"""Compile the hopping exponentials of common models ahead of time into the shipped cache.
+"""Regenerate the shipped native blocks (``lgt/data/compiled_blocks.json``).
 
-    python -m lgt.variational.precompile --levels 3 --link truncated --sites 8
+    python -m lgt.variational.precompile [--levels 2 3 5] [--links truncated quantum-link]
 
-compiles every distinct hopping block of that chain (left boundary, interior even/odd, right
-boundary — the blocks do not depend on w, m, J or the chain length beyond 6 sites) with the
-default native layer and writes them into ``lgt/data/compiled_blocks.json``.
+builds the exact native block of every distinct term of an 8-site chain (left / right boundary,
+interior hopping on even and odd links, boundary and interior mass, electric; the blocks do not
+depend on w, m, J or the chain length) for each d and link type, with the built-in profile's
+gate set, and writes them into the package's data file. Run it from a source checkout; users
+fill their own cache with ``fluxline compile CONFIG``.
 """
 
 from __future__ import annotations
 
 import argparse
-import json
 import os
 import tempfile
 from importlib import resources
@@ -18,32 +19,32 @@ from pathlib import Path
 
 from circuits.hardware import load_profile
 from lgt.model import ModelParams
-from lgt.variational.native_cost import model_term_costs
-from lgt.variational.settings import VariationalSettings
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--levels", type=int, required=True)
-    parser.add_argument("--link", default="truncated")
+    parser.add_argument("--levels", type=int, nargs="+", default=[2, 3, 5])
+    parser.add_argument("--links", nargs="+", default=["truncated", "quantum-link"])
     parser.add_argument("--sites", type=int, default=8)
-    parser.add_argument("--entangler", default=VariationalSettings().entangler)
-    parser.add_argument("--fidelity", type=float, default=VariationalSettings().compile_fidelity)
     args = parser.parse_args(argv)
     shipped = Path(str(resources.files("lgt").joinpath("data/compiled_blocks.json")))
+    profile = load_profile()
     with tempfile.TemporaryDirectory() as tmp:
         os.environ["FLUXLINE_CACHE_DIR"] = tmp
-        params = ModelParams(sites=args.sites, levels=args.levels, link=args.link)
-        settings = VariationalSettings(entangler=args.entangler)
-        costs = model_term_costs(params, settings.native_spec(), load_profile(), args.fidelity, compile=True)
-        new = json.loads((Path(tmp) / "compiled_blocks.json").read_text()) if (Path(tmp) / "compiled_blocks.json").exists() else {}
-    merged = json.loads(shipped.read_text()) if shipped.exists() else {}
-    merged.update(new)
-    shipped.write_text(json.dumps(merged, indent=0))
-    for label, cost in costs.items():
-        if cost.layers:
-            print(f"{label}: {cost.layers} layers, fidelity {cost.compile_fidelity:.5f}, {cost.counts}")
-    print(f"{len(new)} new blocks; {len(merged)} in {shipped}")
+        from lgt.variational import native_cost
+
+        shipped.write_text('{"format": %d, "blocks": {}}' % native_cost.CACHE_FORMAT)
+        for d in args.levels:
+            for link in args.links:
+                if link == "truncated" and d % 2 == 0:
+                    continue  # truncated links need an integer window (odd d)
+                params = ModelParams(sites=args.sites, levels=d, link=link, mass=1.0)
+                costs = native_cost.costs_by_block_kind(params, profile)
+                for kind, c in costs.items():
+                    print(f"d={d} {link:<12} {kind:<17} {c.two_qudit:>4} two-qudit {c.single_qudit:>4} single-qudit")
+        blocks = native_cost._read_json(native_cost._cache_file()).get("blocks", {})
+    native_cost.write_blocks(shipped, blocks)
+    print(f"{len(blocks)} blocks in {shipped}")
     return 0
 
 

@@ -135,15 +135,23 @@ def run_fit(resolved: Mapping[str, Any], progress: bool = False) -> RunResult:
                      attributes=attributes, timings={"fit": t1 - t0, "compare": time.perf_counter() - t1})
 
 
-def export_circuits(resolved: Mapping[str, Any], parameters: np.ndarray, outdir: str | Path) -> list[Path]:
+def export_circuits(resolved: Mapping[str, Any], parameters: np.ndarray, outdir: str | Path,
+                    form: str = "native") -> list[Path]:
     """Write one circuit JSON file per stored time (``step_0000.json`` …) for a lab to run.
 
-    Symmetric circuits are written in register form (the same gates on the link qudits).
-    Each document adds ``time``, ``initial_state`` (register product levels, or the non-zero
-    register amplitudes for a non-product state) and ``model`` to the circuit schema.
+    ``form="native"``: only the hardware profile's native gates (:mod:`circuits.native_export`),
+    angles resolved, each gate with ``duration_us``; the document adds ``compile_fidelity``,
+    ``hardware_profile`` (name, path, sha256) and ``cost``. ``form="generator"``: the circuit's
+    own gates (generator exponentials of the model's terms; for simulation). Symmetric circuits
+    are written in register form. Every document adds ``form``, ``time``, ``initial_state``
+    (register product levels, or the non-zero register amplitudes) and ``model``.
     """
+    from circuits.native_export import native_circuit, native_document
+
+    if form not in ("native", "generator"):
+        raise ValueError(f"form must be 'native' or 'generator', got {form!r}")
     resolved = validate_variational_config(resolved)
-    params, settings, basis, psi0, _ = _setup(resolved)
+    params, settings, basis, psi0, profile = _setup(resolved)
     if settings.family == "symmetric":
         ansatz: ModelAnsatz = symmetric_ansatz(basis, settings.layers, settings.angles, space="register")
     else:
@@ -151,9 +159,14 @@ def export_circuits(resolved: Mapping[str, Any], parameters: np.ndarray, outdir:
     outdir = Path(outdir)
     outdir.mkdir(parents=True, exist_ok=True)
     initial = initial_state_document(basis, psi0)
+    gate_set, blocks = profile.gate_set(params.levels), {}
     paths = []
     for k, row in enumerate(np.atleast_2d(parameters)):
-        doc = to_dict(ansatz.circuit, row)
+        if form == "native":
+            doc = native_document(native_circuit(ansatz.circuit, row, gate_set, blocks), profile)
+        else:
+            doc = to_dict(ansatz.circuit, row)
+        doc["form"] = form
         doc["time"] = k * settings.dt
         doc["initial_state"] = initial
         doc["model"] = resolved["model"]
