@@ -10,7 +10,8 @@ from lgt import __version__
 from lgt.errors import ConfigError, ResourceError
 
 #: Subcommand modules under ``lgt.commands``; each exposes ``register(subparsers)``.
-COMMAND_MODULES = ("demo", "spectrum", "evolve", "potential", "plot", "fit", "size", "sweep", "runs")
+COMMAND_MODULES = ("demo", "spectrum", "evolve", "potential", "plot", "fit", "size", "sweep", "runs",
+                   "predict", "analyze")
 
 
 def build_parser() -> argparse.ArgumentParser:
