@@ -127,7 +127,8 @@ def test_analyze_reproduces_exact_observables_within_errors(tmp_path):
     recovers the exact curves within 3 reported standard errors."""
     times, counts, resolved = _exact_counts(tmp_path)
     csv = write_csv(tmp_path / "measured.csv", times, counts, PARAMS.n_links, 3)
-    out = run_cli("analyze", str(csv), _config(tmp_path), "--json", "--output", str(tmp_path / "a.h5"))
+    out = run_cli("analyze", str(csv), _config(tmp_path), "--json", "--output", str(tmp_path / "a.h5"),
+                  "--plots", str(tmp_path / "figures"))
     assert out.returncode == 0, out.stderr
     rep = json.loads(out.stdout)
     assert np.allclose(rep["times"], times)
@@ -139,6 +140,9 @@ def test_analyze_reproduces_exact_observables_within_errors(tmp_path):
         assert np.all(np.abs(np.array(entry["mitigated"]) - exact[name]) <= 3 * np.array(entry["mitigated_error"]) + 1e-12)
     assert len(rep["discarded_fraction"]) == 6
     assert (tmp_path / "a.h5").is_file()
+    assert len(list((tmp_path / "figures").glob("analyze_*.png"))) == 1 + PARAMS.n_links
+    again = run_cli("analyze", str(csv), _config(tmp_path), "--output", str(tmp_path / "a.h5"))
+    assert again.returncode == 2 and "--overwrite" in again.stderr
 
 
 def test_hdf5_form_equals_csv_form(tmp_path):

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import argparse
 
-from lgt.commands.predict import finish, guard_output, guarded
+from lgt.commands.predict import add_lab_options, finish, guard_output, guarded
 
 
 @guarded
@@ -25,6 +25,6 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("measured", help="CSV (time,count,q0,...) or HDF5 file of measured outcomes")
     p.add_argument("config", help="TOML file with [model], [initial], [variational] and optional [lab]")
     p.add_argument("--output", help="HDF5 file for the analysed curves")
-    p.add_argument("--overwrite", action="store_true", help="replace an existing --output file")
+    add_lab_options(p)
     p.add_argument("--json", action="store_true", help="print one JSON object on stdout")
     p.set_defaults(func=_run)

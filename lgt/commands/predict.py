@@ -46,12 +46,18 @@ def finish(report: dict, result, args: argparse.Namespace) -> int:
         from lgt.io import write_run_file
 
         write_run_file(args.output, result)
+    if args.plots:
+        from lgt.lab.plots import plot_lab_report
+
+        plots = plot_lab_report(report, args.plots)
     if args.json:
         print(json.dumps(report))
     else:
         print_report(report)
         if args.output:
             print(f"wrote {args.output}")
+        if args.plots:
+            print(f"wrote {len(plots)} figures to {args.plots}/")
     return 0
 
 
@@ -85,4 +91,10 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     p = config_command(subparsers, "predict", "predicted lab measurements: noisy shots, mitigated, against exact",
                        "TOML file with [model], [initial], [variational] and optional [lab]", _run,
                        output_help="HDF5 file for the predicted curves")
+    add_lab_options(p)
+
+
+def add_lab_options(p: argparse.ArgumentParser) -> None:
+    """``--overwrite`` and ``--plots DIR`` (shared by predict and analyze)."""
     p.add_argument("--overwrite", action="store_true", help="replace an existing --output file")
+    p.add_argument("--plots", help="folder for PNG figures of the curves with error bands")

@@ -139,6 +139,7 @@ def run_predict(config: Mapping[str, Any], progress: bool = False) -> tuple[dict
     report = _report("predict", times, per_time, exact, extra)
     for name in OBSERVABLES:  # the fitted circuits without noise (fit error only)
         report[name]["circuit"] = np.asarray(fit.series[name].values).tolist()
+    report["timings"] = {"fit_seconds": t1 - t0, "simulate_and_mitigate_seconds": t2 - t1}
     return report, _result("predict", resolved, report, {"fit": t1 - t0, "simulate": t2 - t1})
 
 
