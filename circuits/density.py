@@ -13,6 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .blas_threads import single_threaded_blas
 from .gates import DiagonalGate
 from .noise_program import DecoherenceEvent, DepolarizeEvent, GateEvent, NoisyProgram, PrepareEvent
 from .register import apply_diagonal, apply_local
@@ -39,10 +40,6 @@ def _front(r: np.ndarray, axes: list[int]) -> np.ndarray:
     return np.moveaxis(r, axes, list(range(len(axes))))
 
 
-def _back(t: np.ndarray, axes: list[int]) -> np.ndarray:
-    return np.ascontiguousarray(np.moveaxis(t, list(range(len(axes))), axes))
-
-
 def _gate(r: np.ndarray, ev: GateEvent, K: int) -> np.ndarray:
     qs = list(ev.gate.qudits)
     cols = [q + K for q in qs]
@@ -53,6 +50,10 @@ def _gate(r: np.ndarray, ev: GateEvent, K: int) -> np.ndarray:
         apply_diagonal(view, phase.conj(), cols)
         return r
     u = ev.gate.unitary(ev.angle)
+    if len(qs) == 1:  # one qudit: two small contractions on reshaped views, no axis moves
+        d, q = u.shape[0], qs[0]
+        x = np.einsum("ab,xbr->xar", u, r.reshape(d ** q, d, -1))
+        return np.einsum("ab,xbr->xar", u.conj(), x.reshape(d ** (q + K), d, -1)).reshape(r.shape)
     view = apply_local(view, u, qs)
     return apply_local(view, u.conj(), cols)[0]
 
@@ -74,21 +75,23 @@ def _decohere(r: np.ndarray, ev: DecoherenceEvent, prog: NoisyProgram) -> np.nda
 
 def _depolarize(r: np.ndarray, ev: DepolarizeEvent, K: int) -> np.ndarray:
     qs = list(ev.qudits)
-    axes = qs + [q + K for q in qs]
+    k, d = len(qs), r.shape[0]
     m = ev.masks[0]
     for extra in ev.masks[1:]:
         m = np.multiply.outer(m, extra)
-    m = m.ravel().astype(float)
-    D = m.size
+    m = m.astype(float)
+    f = _front(r, qs + [q + K for q in qs])  # view: in-place updates reach r
+    letters = "abcdefg"[:k]
+    reduced = np.einsum(f"{letters}{letters}...,{letters}->...", f, m)
+    off = (1.0 - m).ravel()
+    factor = ((1 - ev.p) + ev.p * np.outer(off, off)).reshape((d,) * (2 * k) + (1,) * (f.ndim - 2 * k))
+    f *= factor
     idx = np.flatnonzero(m)
-    t = _front(r, axes)
-    shape = t.shape
-    t2 = t.reshape(D, D, -1)
-    reduced = np.einsum("aar,a->r", t2, m)
-    off = 1.0 - m
-    new = t2 * ((1 - ev.p) + ev.p * np.outer(off, off))[:, :, None]
-    new[idx, idx, :] += (ev.p / idx.size) * reduced[None, :]
-    return _back(new.reshape(shape), axes)
+    share = (ev.p / idx.size) * reduced
+    for a in idx:  # the touched states of the gate's qudits (at most d^k)
+        multi = np.unravel_index(a, (d,) * k)
+        f[tuple(multi) + tuple(multi)] += share
+    return r
 
 
 def _prepare(r: np.ndarray, ev: PrepareEvent, K: int, d: int) -> np.ndarray:
@@ -106,6 +109,13 @@ def simulate_density(program: NoisyProgram, psi0: np.ndarray) -> DensityResult:
     if dim > MAX_DENSITY_DIM:
         raise ValueError(f"density matrix of {d}^{K} = {dim} states exceeds MAX_DENSITY_DIM = {MAX_DENSITY_DIM}; "
                          "use trajectories")
+    with single_threaded_blas():  # many small products: threads only add overhead
+        return _run(program, psi0)
+
+
+def _run(program: NoisyProgram, psi0: np.ndarray) -> DensityResult:
+    K, d = program.n_qudits, program.d
+    dim = d ** K
     psi0 = np.asarray(psi0, dtype=np.complex128)
     r = np.outer(psi0, psi0.conj()).reshape((d,) * (2 * K))
     for ev in program.events:

@@ -24,6 +24,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .blas_threads import single_threaded_blas
 from .gates import DiagonalGate
 from .noise_program import DecoherenceEvent, DepolarizeEvent, GateEvent, NoisyProgram, PrepareEvent
 from .register import apply_local
@@ -163,6 +164,12 @@ def simulate_trajectories(program: NoisyProgram, psi0: np.ndarray, accuracy: flo
                           seed: int = 0, batch: int = 64, min_trajectories: int = 64,
                           max_trajectories: int = 20000) -> TrajectoryResult:
     """Trajectories in batches until every level population has standard error ≤ ``accuracy``."""
+    with single_threaded_blas():
+        return _simulate(program, psi0, accuracy, seed, batch, min_trajectories, max_trajectories)
+
+
+def _simulate(program: NoisyProgram, psi0: np.ndarray, accuracy: float, seed: int, batch: int,
+              min_trajectories: int, max_trajectories: int) -> TrajectoryResult:
     rng = np.random.default_rng(seed)
     K, d = program.n_qudits, program.d
     total = np.zeros(d ** K)
