@@ -29,7 +29,7 @@ from .gates import DiagonalGate
 from .noise_program import DecoherenceEvent, DepolarizeEvent, GateEvent, NoisyProgram, PrepareEvent
 from .register import apply_local
 
-__all__ = ["TrajectoryResult", "run_batch", "simulate_trajectories"]
+__all__ = ["TrajectoryResult", "run_batch", "run_states", "simulate_trajectories"]
 
 
 @dataclass
@@ -135,6 +135,11 @@ def _prepare(view: np.ndarray, ev: PrepareEvent, rng: np.random.Generator) -> No
 
 def run_batch(program: NoisyProgram, psi0: np.ndarray, n: int, rng: np.random.Generator) -> np.ndarray:
     """Final outcome probabilities |ψ_b|² of ``n`` trajectories, shape (n, d^K) (zero rows: lost)."""
+    return np.abs(run_states(program, psi0, n, rng)) ** 2
+
+
+def run_states(program: NoisyProgram, psi0: np.ndarray, n: int, rng: np.random.Generator) -> np.ndarray:
+    """Final normalised states of ``n`` trajectories, shape (n, d^K) (zero rows: lost)."""
     K, d = program.n_qudits, program.d
     view = np.repeat(np.asarray(psi0, dtype=np.complex128).reshape((1,) + (d,) * K), n, axis=0)
     alive = np.ones(n, dtype=bool)
@@ -151,7 +156,7 @@ def run_batch(program: NoisyProgram, psi0: np.ndarray, n: int, rng: np.random.Ge
             _depolarize(view, ev, rng, alive)
         else:
             _prepare(view, ev, rng)
-    return np.abs(view.reshape(n, -1)) ** 2
+    return view.reshape(n, -1)
 
 
 def _marginals(probs: np.ndarray, K: int, d: int) -> np.ndarray:
