@@ -4,7 +4,8 @@ each channel (for tests and as the definition the simulators implement).
 
 Timing: gates start at their ASAP-schedule times (hardware-profile durations, µs); every qudit
 decoheres (dephasing and decay, :class:`DecoherenceEvent`) over each idle gap and over each gate it
-takes part in; decoherence during a gate is applied after the gate (common practice, no source).
+takes part in; decoherence during a gate is applied after the gate (common practice, no source), merged with the
+qudit's following idle gap into one event (they commute with the gates on other qudits).
 After the last gate every qudit decoheres up to the end of the schedule, where it is read out.
 
 Channels (d levels per qudit, time t in µs):
@@ -153,14 +154,20 @@ def noisy_program(circuit: ParametrizedCircuit, params: Sequence[float] | None, 
     sched = schedule(circuit, lambda op: durations[id(op)])
     if model.preparation_error > 0:
         events += [PrepareEvent(q, model.preparation_error) for q in range(K)]
+    # decoherence of a qudit commutes with the gates on other qudits, so each qudit's idle gap and
+    # gate durations since its last gate are applied as one event just before its next gate
+    pending = np.zeros(K)
     clock = np.zeros(K)
     for i, (op, t) in enumerate(zip(circuit.ops, angles)):
         gate = op.gate
         qs = list(gate.qudits)
         start, finish = float(sched.start[i]), float(sched.finish[i])
         for q in qs:
-            if start > clock[q]:
-                events.append(DecoherenceEvent(q, start - clock[q]))
+            wait = pending[q] + max(start - clock[q], 0.0)
+            if wait > 0:
+                events.append(DecoherenceEvent(q, wait))
+            pending[q] = finish - start
+            clock[q] = finish
         gn = model.gate_noise(key(gate))
         events.append(GateEvent(gate, float(t) * (1.0 + gn.over_rotation)))
         masks = touched_levels(gate)
@@ -175,14 +182,11 @@ def noisy_program(circuit: ParametrizedCircuit, params: Sequence[float] | None, 
             p = depolarizing_from_fidelity(specs[i][1], int(np.prod([m.sum() for m in masks])))
         if p > 0:
             events.append(DepolarizeEvent(tuple(qs), tuple(masks), float(p)))
-        for q in qs:
-            if finish > start:
-                events.append(DecoherenceEvent(q, finish - start))
-            clock[q] = finish
     end = float(clock.max(initial=0.0))
     for q in range(K):
-        if end > clock[q]:
-            events.append(DecoherenceEvent(q, end - clock[q]))
+        wait = pending[q] + end - clock[q]
+        if wait > 0:
+            events.append(DecoherenceEvent(q, wait))
     if not (np.any(model.dephasing_covariance(d)) or np.any(rates)):
         events = [e for e in events if not isinstance(e, DecoherenceEvent)]
     return NoisyProgram(K, d, events, model.dephasing_covariance(d), rates, targets, model.confusion(d),

@@ -83,33 +83,33 @@ def _depolarize(view: np.ndarray, ev: DepolarizeEvent, rng: np.random.Generator,
 
 def _decohere(view: np.ndarray, ev: DecoherenceEvent, prog: NoisyProgram, rng: np.random.Generator,
               alive: np.ndarray) -> None:
+    """Dephasing and decay of one qudit on the whole batch: one multiplication by a per-row,
+    per-level factor (random phase × no-jump amplitude / new norm), jumps applied row by row."""
     d, q, t = prog.d, ev.qudit, ev.duration_us
     B, K = view.shape[0], view.ndim - 1
     bshape = [B] + [1] * K
     bshape[q + 1] = d
-    # dephasing: Gaussian level phases with covariance C t
+    factor = np.ones((B, d), dtype=np.complex128)
     c = prog.covariance * t
-    if np.any(c):
+    if np.any(c):  # Gaussian level phases with covariance C t
         w, v = np.linalg.eigh(c)
         root = v * np.sqrt(np.clip(w, 0, None))
-        phases = rng.standard_normal((B, d)) @ root.T
-        view *= np.exp(1j * phases).reshape(bshape)
+        factor = np.exp(1j * (rng.standard_normal((B, d)) @ root.T))
     rate = prog.decay_rate
-    if not np.any(rate):
-        return
-    keep = np.exp(-rate * t)
-    pops = np.moveaxis(np.abs(view) ** 2, q + 1, 1).reshape(B, d, -1).sum(axis=2)
-    jump_p = pops * (1 - keep)[None, :]
-    cum = np.cumsum(jump_p, axis=1)
-    u = rng.random(B) * np.maximum(pops.sum(axis=1), 1e-300)
-    level = np.where(u[:, None] < cum, np.arange(d)[None, :], d).min(axis=1)  # d = no jump
-    level[~alive] = d
-    amp = np.sqrt(keep)
-    shape = [1] * (K + 1)
-    shape[q + 1] = d
-    nojump = level == d
-    view[nojump] *= amp.reshape(shape)[0]
-    for b in np.flatnonzero(~nojump):
+    jumped = np.zeros(0, dtype=np.int64)
+    if np.any(rate):
+        keep = np.exp(-rate * t)
+        pops = (view.real ** 2 + view.imag ** 2).sum(axis=tuple(a for a in range(1, K + 1) if a != q + 1))
+        cum = np.cumsum(pops * (1 - keep)[None, :], axis=1)
+        u = rng.random(B) * np.maximum(pops.sum(axis=1), 1e-300)
+        level = np.where(u[:, None] < cum, np.arange(d)[None, :], d).min(axis=1)  # d = no jump
+        level[~alive] = d
+        nojump = level == d
+        norm = np.sqrt(np.maximum(pops @ keep, 1e-300))
+        factor[nojump] *= np.sqrt(keep)[None, :] / norm[nojump, None]
+        jumped = np.flatnonzero(~nojump)
+    view *= factor.reshape(bshape)
+    for b in jumped:
         i = int(level[b])
         tgt = int(prog.decay_target[i])
         if tgt < 0:
@@ -119,10 +119,7 @@ def _decohere(view: np.ndarray, ev: DecoherenceEvent, prog: NoisyProgram, rng: n
         moved = np.moveaxis(view[b], q, 0)
         src = moved[i].copy()
         moved[...] = 0.0
-        moved[tgt] = src
-    norms = np.sqrt((np.abs(view.reshape(B, -1)) ** 2).sum(axis=1))
-    ok = norms > 0
-    view[ok] /= norms[ok].reshape((-1,) + (1,) * K)
+        moved[tgt] = src / np.sqrt(max(pops[b, i], 1e-300))
 
 
 def _prepare(view: np.ndarray, ev: PrepareEvent, rng: np.random.Generator) -> None:
