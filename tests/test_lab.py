@@ -222,3 +222,24 @@ def test_bad_lab_and_noise_tables_exit_2(tmp_path):
     bad = ERROR_FREE_PROFILE.replace('name = "no errors"', 'name = "x"\nleaked_outcome = "keep"')
     out = run_cli("predict", _config(tmp_path, bad))
     assert out.returncode == 2 and "noise.leaked_outcome" in out.stderr
+
+
+def test_predict_reuses_a_fit_file(tmp_path):
+    """predict --fit FILE gives the same report as fitting afresh; a fit of another model is refused."""
+    cfg = _config(tmp_path, ERROR_FREE_PROFILE)
+    with open(cfg) as fh:
+        fit_cfg = tmp_path / "fit.toml"  # fit does not read [lab] (and rejects it today)
+        fit_cfg.write_text(fh.read().replace(LAB, ""))
+    fit = run_cli("fit", str(fit_cfg), "--json", "--output", str(tmp_path / "fit.h5"))
+    assert fit.returncode == 0, fit.stderr
+    fresh = json.loads(run_cli("predict", cfg, "--json").stdout)
+    reused = run_cli("predict", cfg, "--json", "--fit", str(tmp_path / "fit.h5"))
+    assert reused.returncode == 0, reused.stderr
+    rep = json.loads(reused.stdout)
+    assert rep["particle_density"] == fresh["particle_density"]
+    with open(cfg) as fh:
+        text = fh.read()
+    with open(cfg, "w") as fh:
+        fh.write(text.replace("mass = 0.5", "mass = 0.7"))
+    other = run_cli("predict", cfg, "--fit", str(tmp_path / "fit.h5"))
+    assert other.returncode == 2 and "[model]" in other.stderr

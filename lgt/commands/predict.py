@@ -82,7 +82,7 @@ def _run(args: argparse.Namespace) -> int:
     config = load_config(args.config)
     split_config(config)
     guard_output(args.output, args.overwrite)
-    report, result = run_predict(config, progress=not args.json)
+    report, result = run_predict(config, progress=not args.json, fit_file=args.fit)
     return finish(report, result, args)
 
 
@@ -91,6 +91,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     p = config_command(subparsers, "predict", "predicted lab measurements: noisy shots, mitigated, against exact",
                        "TOML file with [model], [initial], [variational] and optional [lab]", _run,
                        output_help="HDF5 file for the predicted curves")
+    p.add_argument("--fit", help="reuse the fitted circuits of a 'fluxline fit --output' run file")
     add_lab_options(p)
 
 

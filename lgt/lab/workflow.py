@@ -97,17 +97,37 @@ def _result(task: str, resolved: Mapping[str, Any], report: dict[str, Any], timi
     return RunResult(task, dict(resolved), series, attributes=attributes, timings=timings)
 
 
-def run_predict(config: Mapping[str, Any], progress: bool = False) -> tuple[dict[str, Any], RunResult]:
-    """Fit the ``[variational]`` circuits, simulate each stored step's exported circuit under the
-    profile's noise model, sample ``[lab] shots`` shots and analyse them like measured data."""
+def load_fit(path: str | Path, resolved: Mapping[str, Any]) -> RunResult:
+    """A ``fluxline fit --output`` run file, checked to belong to this configuration."""
+    from lgt.errors import InputError
+    from lgt.io import read_run_file
+
+    try:
+        fit = read_run_file(path)
+    except (OSError, ValueError, KeyError) as exc:
+        raise InputError(str(path), f"cannot be read as a Fluxline run file ({exc})") from None
+    if fit.task != "fit" or "parameters" not in fit.arrays:
+        raise InputError(str(path), f"is a {fit.task!r} run, not a fit run with fitted parameters")
+    for section in ("model", "initial", "variational"):
+        if json.dumps(fit.parameters.get(section), sort_keys=True) != json.dumps(resolved[section], sort_keys=True):
+            raise InputError(str(path), f"was fitted with a different [{section}] section than the configuration")
+    return fit
+
+
+def run_predict(config: Mapping[str, Any], progress: bool = False,
+                fit_file: str | Path | None = None) -> tuple[dict[str, Any], RunResult]:
+    """Fit the ``[variational]`` circuits (or reuse ``fit_file``), simulate each stored step's
+    exported circuit under the profile's noise model, sample ``[lab] shots`` shots and analyse them
+    like measured data."""
     from lgt.variational.workflow import export_circuits, initial_state_from_document, run_fit
 
     resolved, lab = split_config(config)
     noise = _noise_for(resolved, lab)  # before any work
     params = ModelParams.from_dict(resolved["model"])
     K, d = params.n_links, params.levels
+    reused = load_fit(fit_file, resolved) if fit_file is not None else None
     t0 = time.perf_counter()
-    fit = run_fit(resolved, progress=progress)
+    fit = reused if reused is not None else run_fit(resolved, progress=progress)
     t1 = time.perf_counter()
     obs = StringObservables.for_model(params)
     mats = [noise.model.confusion(d)] * K
@@ -135,7 +155,7 @@ def run_predict(config: Mapping[str, Any], progress: bool = False) -> tuple[dict
     extra = {"noise": noise.describe(), "lab": lab.to_dict(),
              "simulation": {key: [s[key] for s in info] for key in info[0]},
              "fit": {"max_infidelity": fit.attributes["max_infidelity"], "family": fit.attributes["family"],
-                     "layers": fit.attributes["layers"]}}
+                     "layers": fit.attributes["layers"], "reused": None if fit_file is None else str(fit_file)}}
     report = _report("predict", times, per_time, exact, extra)
     for name in OBSERVABLES:  # the fitted circuits without noise (fit error only)
         report[name]["circuit"] = np.asarray(fit.series[name].values).tolist()
