@@ -7,6 +7,8 @@ import json
 import h5py
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from cli_runner import run_cli
 from lgt.basis import PhysicalBasis
@@ -243,3 +245,21 @@ def test_predict_reuses_a_fit_file(tmp_path):
         fh.write(text.replace("mass = 0.5", "mass = 0.7"))
     other = run_cli("predict", cfg, "--fit", str(tmp_path / "fit.h5"))
     assert other.returncode == 2 and "[model]" in other.stderr
+
+
+@settings(max_examples=25, deadline=None)
+@given(st.integers(2, 4), st.integers(1, 3), st.integers(0, 10_000))
+def test_unfolding_stays_a_probability_distribution(d, K, seed):
+    """Invariant: for any column-stochastic responses and any counts, the unfolded estimate is
+    non-negative and normalised, and the response preserves total probability."""
+    rng = np.random.default_rng(seed)
+    mats = []
+    for _ in range(K):
+        a = rng.random((d, d)) + np.eye(d) * rng.uniform(0, 3)
+        mats.append(a / a.sum(axis=0, keepdims=True))
+    counts = rng.integers(0, 20, size=(2, d ** K)).astype(float)
+    counts[:, 0] += 1
+    freq = counts / counts.sum(axis=1, keepdims=True)
+    assert np.allclose(apply_response(freq, mats).sum(axis=1), 1)
+    p = unfold(freq, mats, iterations=50)
+    assert np.all(p >= 0) and np.allclose(p.sum(axis=1), 1)
