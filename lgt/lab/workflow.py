@@ -83,7 +83,18 @@ def _report(task: str, times: np.ndarray, per_time: list[dict], exact: dict[str,
             entry["noisy_expected"] = np.array([r["expected"][name] for r in per_time]).tolist()
         report[name] = entry
     report.update(extra)
-    return report
+    return _finite(report)
+
+
+def _finite(value: Any) -> Any:
+    """NaN / inf (an error bar of a time without shots) as None, so the report is strict JSON."""
+    if isinstance(value, dict):
+        return {k: _finite(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_finite(v) for v in value]
+    if isinstance(value, float) and not np.isfinite(value):
+        return None
+    return value
 
 
 def _result(task: str, resolved: Mapping[str, Any], report: dict[str, Any], timings: dict[str, float]) -> RunResult:
