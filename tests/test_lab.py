@@ -263,3 +263,23 @@ def test_unfolding_stays_a_probability_distribution(d, K, seed):
     assert np.allclose(apply_response(freq, mats).sum(axis=1), 1)
     p = unfold(freq, mats, iterations=50)
     assert np.all(p >= 0) and np.allclose(p.sum(axis=1), 1)
+
+
+def test_predict_noise_none_with_trajectories(tmp_path):
+    """[lab] noise = "none" and method = "trajectories": noiseless trajectories all agree, so the
+    minimum batch is reported with zero statistical error, and nothing is discarded."""
+    cfg = _config(tmp_path)
+    with open(cfg) as fh:
+        text = fh.read()
+    with open(cfg, "w") as fh:
+        fh.write(text.replace("seed = 3", 'seed = 3\nnoise = "none"\nmethod = "trajectories"\nshots = 500'
+                              ).replace("shots = 4000\n", ""))
+    out = run_cli("predict", cfg, "--json")
+    assert out.returncode == 0, out.stderr
+    rep = json.loads(out.stdout)
+    assert rep["simulation"]["method"] == ["trajectories"] * 6
+    assert rep["simulation"]["trajectories"] == [64] * 6
+    assert max(rep["simulation"]["trajectory_error"]) < 1e-6  # rounding only
+    assert rep["discarded_fraction"] == [0.0] * 6
+    e = {k: np.array(v) for k, v in rep["particle_density"].items()}
+    assert np.allclose(e["noisy_expected"], e["circuit"], atol=1e-9)
