@@ -40,6 +40,13 @@ def _front(r: np.ndarray, axes: list[int]) -> np.ndarray:
     return np.moveaxis(r, axes, list(range(len(axes))))
 
 
+def _contract(u: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """u applied to the middle axis of x (L, d, R): batched GEMMs (one GEMM when R = 1)."""
+    if x.shape[2] == 1:
+        return (x[:, :, 0] @ u.T)[:, :, None]
+    return np.matmul(u, x)
+
+
 def _gate(r: np.ndarray, ev: GateEvent, K: int) -> np.ndarray:
     qs = list(ev.gate.qudits)
     cols = [q + K for q in qs]
@@ -52,8 +59,8 @@ def _gate(r: np.ndarray, ev: GateEvent, K: int) -> np.ndarray:
     u = ev.gate.unitary(ev.angle)
     if len(qs) == 1:  # one qudit: two small contractions on reshaped views, no axis moves
         d, q = u.shape[0], qs[0]
-        x = np.einsum("ab,xbr->xar", u, r.reshape(d ** q, d, -1))
-        return np.einsum("ab,xbr->xar", u.conj(), x.reshape(d ** (q + K), d, -1)).reshape(r.shape)
+        x = _contract(u, r.reshape(d ** q, d, -1))
+        return _contract(u.conj(), x.reshape(d ** (q + K), d, -1)).reshape(r.shape)
     view = apply_local(view, u, qs)
     return apply_local(view, u.conj(), cols)[0]
 
