@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 import json
+import sys
 import tempfile
 import time
 from pathlib import Path
@@ -26,15 +27,26 @@ __all__ = ["OBSERVABLES", "split_config", "simulate_outcomes", "sample_shots", "
 
 #: Observables reported by predict and analyze.
 OBSERVABLES = ("particle_density", "electric_field")
+#: Largest register (d^K strings) whose outcome distributions are mitigated (arrays of d^K floats
+#: per bootstrap resample and per string-level table).
+MAX_STRINGS = 2_000_000
 
 
 def split_config(config: Mapping[str, Any]) -> tuple[dict[str, Any], LabSettings]:
     """(the configuration without ``[lab]``, the resolved ``[lab]`` settings); validates both."""
     from lgt.variational.workflow import validate_variational_config
 
+    from lgt.errors import ConfigError
+
     rest = {k: v for k, v in config.items() if k != "lab"}
     lab = resolve_lab(config.get("lab"))
-    return validate_variational_config(rest), lab
+    resolved = validate_variational_config(rest)
+    m = resolved["model"]
+    strings = m["levels"] ** (m["sites"] - 1)
+    if strings > MAX_STRINGS:
+        raise ConfigError("model", {"sites": m["sites"], "levels": m["levels"]},
+                          f"{strings:,} register strings exceed the {MAX_STRINGS:,} that predict/analyze handle")
+    return resolved, lab
 
 
 def _noise_for(resolved: Mapping[str, Any], lab: LabSettings) -> LabNoise:
@@ -148,6 +160,11 @@ def run_predict(config: Mapping[str, Any], progress: bool = False,
         paths = export_circuits(resolved, fit.arrays["parameters"], tmp)
         docs = [json.loads(Path(p).read_text()) for p in paths]
     times = np.array([doc["time"] for doc in docs])
+    bar = None
+    if progress:
+        from tqdm import tqdm
+
+        bar = tqdm(total=len(docs), desc="noisy simulation", unit="step", file=sys.stderr)
     for k, doc in enumerate(docs):
         circuit = from_dict(doc)
         psi0 = initial_state_from_document(doc["initial_state"], K, d)
@@ -161,6 +178,10 @@ def run_predict(config: Mapping[str, Any], progress: bool = False,
         per_time.append(res)
         sim.update(lost=lost, duration_us=program.duration_us)
         info.append(sim)
+        if bar is not None:
+            bar.update(1)
+    if bar is not None:
+        bar.close()
     t2 = time.perf_counter()
     exact = {name: fit.series[f"exact_{name}"].values for name in OBSERVABLES}
     extra = {"noise": noise.describe(), "lab": lab.to_dict(),
