@@ -127,7 +127,7 @@ class NoiseModel:
         levels_in = table.get("level", [])
         if not isinstance(levels_in, list):
             raise NoiseModelError("noise.level", levels_in, "must be an array of tables ([[noise.level]])")
-        levels = tuple(_level(entry, f"noise.level[{i}]", len(levels_in)) for i, entry in enumerate(levels_in))
+        levels = tuple(_level(entry, i) for i, entry in enumerate(levels_in))
         gates_in = table.get("gates", {})
         if not isinstance(gates_in, Mapping):
             raise NoiseModelError("noise.gates", gates_in, "must be a table")
@@ -250,17 +250,19 @@ def _sub(table: Mapping[str, Any], name: str, allowed: tuple[str, ...]) -> Mappi
     return sub
 
 
-def _level(entry: Any, where: str, n_levels: int) -> LevelNoise:
+def _level(entry: Any, index: int) -> LevelNoise:
+    where = f"noise.level[{index}]"
     if not isinstance(entry, Mapping):
         raise NoiseModelError(where, entry, "must be a table")
     _known(entry, _LEVEL_KEYS, where)
     t1 = _number(entry, "t1_us", where, math.inf, positive=True) if "t1_us" in entry else math.inf
-    target = entry.get("decays_to", LEAKED if math.isfinite(t1) else None)
+    if math.isfinite(t1) and "decays_to" not in entry:
+        raise NoiseModelError(f"{where}.decays_to", None, f"is required with t1_us (a level index or {LEAKED!r})")
+    target = entry.get("decays_to")
     if target == LEAKED or target is None:
         target = None
     elif isinstance(target, bool) or not isinstance(target, int) or target < 0:
         raise NoiseModelError(f"{where}.decays_to", target, f"must be a level index >= 0 or {LEAKED!r}")
-    index = int(where[where.index("[") + 1:-1])
     if target is not None and target == index:
         raise NoiseModelError(f"{where}.decays_to", target, "a level cannot decay to itself")
     return LevelNoise(_real(entry.get("sensitivity_MHz_per_G", 0.0), f"{where}.sensitivity_MHz_per_G"),

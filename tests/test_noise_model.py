@@ -221,6 +221,8 @@ def test_default_model_parses_and_is_marked_illustrative():
     ({"format": 1, "colour": 1}, "noise.colour"),
     ({"format": 1, "level": [{"t1_us": -1.0}]}, "noise.level[0].t1_us"),
     ({"format": 1, "level": [{"t1_us": 5.0, "decays_to": 0}]}, "noise.level[0].decays_to"),
+    ({"format": 1, "level": [{}, {"t1_us": 5.0}]}, "noise.level[1].decays_to"),
+    ({"format": 1, "level": [{"sensitivity_MHz_per_G": "big"}]}, "noise.level[0].sensitivity_MHz_per_G"),
     ({"format": 1, "gates": {"rotaton": {}}}, "noise.gates.rotaton"),
     ({"format": 1, "gates": {"ms": {"depolarizing": 1.5}}}, "noise.gates.ms.depolarizing"),
     ({"format": 1, "readout": {"confusion": [[0.9, 0.2], [0.0, 1.0]]}}, "noise.readout.confusion"),
