@@ -116,8 +116,11 @@ class NoiseModel:
         return cls.from_table(tomllib.loads(text)["noise"])
 
     @classmethod
-    def from_table(cls, table: Mapping[str, Any]) -> "NoiseModel":
-        """Parse and validate a ``[noise]`` table; raises :class:`NoiseModelError`."""
+    def from_table(cls, table: Mapping[str, Any], gate_keys: tuple[str, ...] = GATE_KEYS) -> "NoiseModel":
+        """Parse and validate a ``[noise]`` table; raises :class:`NoiseModelError`.
+
+        ``gate_keys``: the gate kinds ``[noise.gates.<kind>]`` may name (pass the profile's
+        ``[hardware.gates]`` keys too when the profile has kinds of its own)."""
         if not isinstance(table, Mapping):
             raise NoiseModelError("noise", table, "must be a table")
         _known(table, _TOP_KEYS, "noise")
@@ -133,8 +136,8 @@ class NoiseModel:
             raise NoiseModelError("noise.gates", gates_in, "must be a table")
         gates = {}
         for key, entry in gates_in.items():
-            if key not in GATE_KEYS:
-                raise NoiseModelError(f"noise.gates.{key}", entry, f"unknown gate kind; known: {', '.join(GATE_KEYS)}")
+            if key not in gate_keys:
+                raise NoiseModelError(f"noise.gates.{key}", entry, f"unknown gate kind; known: {', '.join(gate_keys)}")
             gates[key] = _gate(entry, f"noise.gates.{key}")
         prep = _sub(table, "preparation", ("error", "source"))
         readout = _sub(table, "readout", ("error", "confusion", "source"))

@@ -7,7 +7,7 @@ from pathlib import Path
 from typing import Any, Callable
 
 from circuits.hardware import HardwareProfile, load_profile
-from circuits.noise_model import NoiseModel, NoiseModelError
+from circuits.noise_model import GATE_KEYS, NoiseModel, NoiseModelError
 from lgt.errors import ConfigError
 
 if sys.version_info >= (3, 11):
@@ -64,7 +64,8 @@ def lab_noise(profile_path: str | None, source: str = "profile") -> LabNoise:
         return LabNoise(profile, NoiseModel.default(),
                         "built-in illustrative model (recalled from memory; replace with your device's [noise] table)")
     try:
-        model = NoiseModel.from_table(table)
+        keys = tuple(dict.fromkeys(GATE_KEYS + tuple(profile.gates)))
+        model = NoiseModel.from_table(table, keys)
     except NoiseModelError as exc:
         raise ConfigError(f"{profile_path}: {exc.key}", exc.value, exc.reason) from None
     return LabNoise(profile, model, f"[noise] of {profile_path}")
