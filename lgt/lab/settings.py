@@ -11,7 +11,7 @@ from lgt.errors import ConfigError
 METHODS = ("auto", "density", "trajectories")
 NOISE_SOURCES = ("profile", "none")
 LAB_KEYS = ("shots", "seed", "bootstrap", "method", "trajectory_error", "max_trajectories",
-            "unfold_iterations", "noise")
+            "unfold_iterations", "noise", "zne_scales")
 
 
 @dataclass(frozen=True)
@@ -26,6 +26,8 @@ class LabSettings:
     max_trajectories : cap on the number of trajectories per circuit
     unfold_iterations : iterations of the readout unfolding
     noise : "profile" (the hardware profile's [noise] table, else the built-in model) or "none"
+    zne_scales : odd gate-folding scales for zero-noise extrapolation (predict), e.g. (1, 3);
+        empty: off. Each scale costs ``shots`` more shots per step.
     """
 
     shots: int = 1000
@@ -36,9 +38,12 @@ class LabSettings:
     max_trajectories: int = 20000
     unfold_iterations: int = 100
     noise: str = "profile"
+    zne_scales: tuple[int, ...] = ()
 
     def to_dict(self) -> dict[str, Any]:
-        return asdict(self)
+        out = asdict(self)
+        out["zne_scales"] = list(self.zne_scales)
+        return out
 
 
 def resolve_lab(section: Any) -> LabSettings:
@@ -52,6 +57,11 @@ def resolve_lab(section: Any) -> LabSettings:
     te = as_float(section.get("trajectory_error", d.trajectory_error), p + "trajectory_error", positive=True)
     if te >= 1:
         raise ConfigError(p + "trajectory_error", te, "is a probability error and must be below 1")
+    scales = section.get("zne_scales", [])
+    if (not isinstance(scales, list) or any(isinstance(x, bool) or not isinstance(x, int) or x < 1 or x % 2 == 0
+                                            for x in scales)
+            or (scales and (scales[0] != 1 or len(scales) < 2 or sorted(set(scales)) != scales))):
+        raise ConfigError(p + "zne_scales", scales, "must be [] or increasing odd integers starting at 1, e.g. [1, 3]")
     return LabSettings(
         shots=as_int(section.get("shots", d.shots), p + "shots", minimum=1),
         seed=as_int(section.get("seed", d.seed), p + "seed", minimum=0),
@@ -62,4 +72,5 @@ def resolve_lab(section: Any) -> LabSettings:
         unfold_iterations=as_int(section.get("unfold_iterations", d.unfold_iterations), p + "unfold_iterations",
                                  minimum=1),
         noise=as_choice(section.get("noise", d.noise), p + "noise", NOISE_SOURCES),
+        zne_scales=tuple(scales),
     )

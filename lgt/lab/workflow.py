@@ -93,6 +93,9 @@ def _report(task: str, times: np.ndarray, per_time: list[dict], exact: dict[str,
         entry["exact"] = np.asarray(exact[name]).tolist()
         if "expected" in per_time[0]:
             entry["noisy_expected"] = np.array([r["expected"][name] for r in per_time]).tolist()
+        if "zne" in per_time[0]:
+            entry["zne"] = np.array([r["zne"][name][0] for r in per_time]).tolist()
+            entry["zne_error"] = np.array([r["zne"][name][1] for r in per_time]).tolist()
         report[name] = entry
     report.update(extra)
     return _finite(report)
@@ -175,6 +178,8 @@ def run_predict(config: Mapping[str, Any], progress: bool = False,
         res = analyze_counts(counts, obs, mats, leaked, lab.bootstrap, lab.unfold_iterations, seed=lab.seed + k)
         expected = obs.values(p_read[None, :])
         res["expected"] = {name: expected[name][0] for name in OBSERVABLES}
+        if lab.zne_scales:
+            res["zne"] = _zne(circuit, psi0, noise, lab, obs, mats, k, res)
         per_time.append(res)
         sim.update(lost=lost, duration_us=program.duration_us)
         info.append(sim)
@@ -193,6 +198,22 @@ def run_predict(config: Mapping[str, Any], progress: bool = False,
         report[name]["circuit"] = np.asarray(fit.series[name].values).tolist()
     report["timings"] = {"fit_seconds": t1 - t0, "simulate_and_mitigate_seconds": t2 - t1}
     return report, _result("predict", resolved, report, {"fit": t1 - t0, "simulate": t2 - t1})
+
+
+def _zne(circuit, psi0: np.ndarray, noise: LabNoise, lab: LabSettings, obs: StringObservables, mats,
+         k: int, unfolded: dict) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """Mitigated values at every folding scale (scale 1 = ``unfolded``), extrapolated to zero noise."""
+    from lgt.lab.zne import extrapolate, fold_circuit
+
+    runs = [unfolded]
+    for scale in lab.zne_scales[1:]:
+        program = noisy_program(fold_circuit(circuit, scale), None, noise.model, noise.spec())
+        p_true, lost, _ = simulate_outcomes(program, psi0, lab, lab.seed + 1000 * scale + k)
+        counts, leaked, _ = sample_shots(p_true, lost, program, lab.shots, np.random.default_rng([lab.seed, k, scale]))
+        runs.append(analyze_counts(counts, obs, mats, leaked, lab.bootstrap, lab.unfold_iterations,
+                                   seed=lab.seed + 1000 * scale + k))
+    return {name: extrapolate(lab.zne_scales, [r[name]["mitigated"] for r in runs],
+                              [r[name]["mitigated_error"] for r in runs]) for name in OBSERVABLES}
 
 
 def exact_observables(resolved: Mapping[str, Any], steps: np.ndarray) -> dict[str, np.ndarray]:
