@@ -17,7 +17,8 @@ from lgt import __version__
 from lgt.errors import FluxlineError, exit_status, message
 
 #: Subcommand modules under ``lgt.commands``; each exposes ``register(subparsers)``.
-COMMAND_MODULES = ("demo", "spectrum", "evolve", "potential", "plot", "fit", "size", "sweep", "runs", "compile")
+COMMAND_MODULES = ("demo", "spectrum", "evolve", "potential", "plot", "fit", "size", "sweep", "runs",
+                   "compile", "predict", "analyze")
 
 
 def build_parser() -> argparse.ArgumentParser:
