@@ -82,7 +82,7 @@ def _run(args: argparse.Namespace) -> int:
     config = load_config(args.config)
     split_config(config)
     guard_output(args.output, args.overwrite)
-    report, result = run_predict(config, progress=not args.json, fit_file=args.fit)
+    report, result = run_predict(config, progress=not (args.json or args.quiet), fit_file=args.fit)
     return finish(report, result, args)
 
 

@@ -2,18 +2,11 @@
 
 from __future__ import annotations
 
-import sys
-from pathlib import Path
 from typing import Any, Callable
 
 from circuits.hardware import HardwareProfile, load_profile
 from circuits.noise_model import GATE_KEYS, NoiseModel, NoiseModelError
 from lgt.errors import ConfigError
-
-if sys.version_info >= (3, 11):
-    import tomllib
-else:  # pragma: no cover
-    import tomli as tomllib
 
 __all__ = ["LabNoise", "lab_noise"]
 
@@ -38,12 +31,9 @@ class LabNoise:
         return {"profile": self.profile.name, "noise_model": self.model.describe(), "origin": self.origin}
 
 
-def _noise_table(profile: HardwareProfile, path: str | None) -> dict | None:
-    table = getattr(profile, "noise_table", None)  # kept by the profile loader when it knows [noise]
-    if table is not None or path is None:
-        return table
-    with Path(path).open("rb") as fh:
-        return tomllib.load(fh).get("noise")
+def _noise_table(profile: HardwareProfile) -> dict | None:
+    """The profile's raw ``[noise]`` table (kept by the profile loader), or None when it has none."""
+    return profile.noise_table or None
 
 
 def lab_noise(profile_path: str | None, source: str = "profile") -> LabNoise:
@@ -59,7 +49,7 @@ def lab_noise(profile_path: str | None, source: str = "profile") -> LabNoise:
         raise ConfigError(key, profile_path, str(exc)) from None
     if source == "none":
         return LabNoise(profile, NoiseModel.noiseless(), "noiseless ([lab] noise = \"none\")")
-    table = _noise_table(profile, profile_path)
+    table = _noise_table(profile)
     if table is None:
         return LabNoise(profile, NoiseModel.default(),
                         "built-in illustrative model (recalled from memory; replace with your device's [noise] table)")

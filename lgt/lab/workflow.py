@@ -34,13 +34,14 @@ MAX_STRINGS = 2_000_000
 
 def split_config(config: Mapping[str, Any]) -> tuple[dict[str, Any], LabSettings]:
     """(the configuration without ``[lab]``, the resolved ``[lab]`` settings); validates both."""
-    from lgt.variational.workflow import validate_variational_config
-
+    from lgt.config import config_folder, with_folder
     from lgt.errors import ConfigError
+    from lgt.tasks import get_task
 
-    rest = {k: v for k, v in config.items() if k != "lab"}
+    # the fit task's sections and policy; relative paths still resolve against the config's folder
+    rest = with_folder({k: v for k, v in config.items() if k != "lab"}, config_folder(config))
     lab = resolve_lab(config.get("lab"))
-    resolved = validate_variational_config(rest)
+    resolved = get_task("fit").validate(rest)
     m = resolved["model"]
     strings = m["levels"] ** (m["sites"] - 1)
     if strings > MAX_STRINGS:
