@@ -27,7 +27,7 @@ import h5py
 import numpy as np
 
 import lgt
-from lgt.results import RunResult, TimeSeries
+from lgt.results import RunResult, Table, TimeSeries
 
 #: Version of the Fluxline HDF5 layout described in docs/hdf5_layout.md.
 LAYOUT_VERSION = 1
@@ -151,6 +151,7 @@ def write_run_group(group: h5py.Group, result: RunResult,
     for name, array in result.arrays.items():
         _check_name(name, "array")
         arrays.create_dataset(name, data=_storable(np.asarray(array), name))
+    _write_tables(group, result.tables)
     group.file.flush()
     attrs["status"] = STATUS_COMPLETE
     group.file.flush()
@@ -260,7 +261,39 @@ def read_run(group: h5py.Group) -> RunResult:
     arrays = {name: _decoded(ds[()]) for name, ds in group.get("arrays", {}).items()}
     return RunResult(task=str(_from_attr(attrs["task"])),
                      parameters=json.loads(_from_attr(attrs["parameters"])),
-                     series=series, arrays=arrays, attributes=attributes, timings=timings)
+                     series=series, arrays=arrays, attributes=attributes, timings=timings,
+                     tables=_read_tables(group))
+
+
+# ---------------------------------------------------------------------------------- tables
+# Minimal layout for RunResult.tables, added with the sizing tables (the HDF5 layout owner may
+# replace it): ``tables/<name>`` group with attribute ``description``, one dataset per column
+# (in column order, attribute ``column_order`` on the group) with attribute ``unit`` where the
+# column has one.
+def _write_tables(group: h5py.Group, tables: Mapping[str, Table]) -> None:
+    if not tables:
+        return
+    root = group.create_group("tables")
+    for name, table in tables.items():
+        _check_name(name, "table")
+        sub = root.create_group(name)
+        sub.attrs["description"] = table.description
+        sub.attrs["column_order"] = json.dumps(list(table.columns))
+        for col, values in table.columns.items():
+            _check_name(col, "table column")
+            ds = sub.create_dataset(col, data=_storable(np.asarray(values), col))
+            if col in table.units:
+                ds.attrs["unit"] = table.units[col]
+
+
+def _read_tables(group: h5py.Group) -> dict[str, Table]:
+    out = {}
+    for name, sub in group.get("tables", {}).items():
+        order = json.loads(_from_attr(sub.attrs["column_order"]))
+        columns = {col: _decoded(sub[col][()]) for col in order}
+        units = {col: str(_from_attr(sub[col].attrs["unit"])) for col in order if "unit" in sub[col].attrs}
+        out[name] = Table(columns, units, str(_from_attr(sub.attrs.get("description", ""))))
+    return out
 
 
 def _decoded(values: np.ndarray) -> np.ndarray:

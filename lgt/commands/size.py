@@ -11,12 +11,12 @@ from lgt.config import load_config
 
 
 def _run(args: argparse.Namespace) -> int:
-    from lgt.variational.workflow import run_size, validate_variational_config
+    from lgt.variational.workflow import run_size, size_summary_dict, validate_variational_config
 
     resolved = validate_variational_config(load_config(args.config))
     log = None if args.json else (lambda msg: print(msg, file=sys.stderr))
     result = run_size(resolved, log=log)
-    summary = json.loads(result.attributes["summary_json"])
+    summary = size_summary_dict(result)
     if args.output:
         from lgt.io import write_run_file
 

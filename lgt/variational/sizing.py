@@ -4,24 +4,32 @@
 from __future__ import annotations
 
 import time
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, fields
 from typing import Callable
 
 import numpy as np
 
-from circuits.hardware import HardwareProfile
 from circuits.trotter import trotter_schedule
 from lgt.basis import PhysicalBasis
-from lgt.variational.ansatz import make_ansatz, ordered_terms
-from lgt.variational.budget import CircuitCost, ansatz_cost
+from lgt.results import Table
+from lgt.variational.ansatz import LayerOptions, ModelAnsatz, ordered_terms
+from lgt.variational.budget import CircuitCost, Costing
 from lgt.variational.comparison import compare_to_exact, make_observer
+from lgt.variational.families import get_family
 from lgt.variational.native_cost import TermCost, summed_cost
 from lgt.variational.settings import VariationalSettings
 from lgt.variational.stepper import VariationalTrajectory, fit_trajectory
 from lgt.variational.trotter_baseline import least_trotter_steps
 
+#: Fast path: offer depth D + 1 the angles of depth D plus an identity layer as warm starts.
+WARM_STARTS = True
 #: Observables whose errors decide the ``observables`` criterion.
 CRITERION_OBSERVABLES = ("electric_field", "particle_density")
+#: Units of the result columns that have one (the others are counts or dimensionless).
+COLUMN_UNITS = {"duration_us": "us", "fit_seconds": "s", "reached_time": "lattice time", "time": "lattice time",
+                "step_seconds": "s"}
+#: Stored in integer columns for "none" (no Trotter step count met the tolerance, no depth chosen).
+NONE = -1
 
 
 @dataclass
@@ -88,30 +96,52 @@ class SizingResult:
         return [asdict(r) for r in self.rows]
 
 
+def depth_ansatz(basis: PhysicalBasis, settings: VariationalSettings, layers: int):
+    """D = ``layers`` layers of the configured family on its fit space."""
+    return get_family(settings.family).build(basis, layers, LayerOptions.from_settings(settings))
+
+
+def depth_cost(ansatz, costing: Costing) -> CircuitCost:
+    """Native cost of a family's D-layer circuit."""
+    return get_family(ansatz.family).native_cost(ansatz, costing)
+
+
+def meets(settings: VariationalSettings, max_infidelity: float, max_observable_error: float) -> bool:
+    """The one acceptance rule: ``criterion = "fidelity"`` needs max_t (1 − F(t)) ≤ ``tolerance``;
+    ``"observables"`` needs the largest error of ⟨L_n⟩ and ν over the window ≤ ``observable_tolerance``
+    (for the depth search and the Trotter baseline alike)."""
+    if settings.criterion == "fidelity":
+        return max_infidelity <= settings.tolerance
+    return max_observable_error <= settings.observable_tolerance
+
+
 def evaluate_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSettings, layers: int,
-                   profile: HardwareProfile, term_costs: dict[str, TermCost],
-                   progress: Callable[[int], None] | None = None,
-                   abort: float | None = None) -> tuple[DepthRow, VariationalTrajectory]:
-    """Fit D = ``layers`` over the window and summarise it (``abort``: see :func:`fit_trajectory`)."""
-    ansatz = make_ansatz(basis, settings.family, layers, settings.angles, settings.native_spec())
+                   costing: Costing, progress: Callable[[int], None] | None = None,
+                   abort: float | None = None, fast: bool = True,
+                   shallower: tuple[ModelAnsatz, VariationalTrajectory] | None = None,
+                   ) -> tuple[DepthRow, VariationalTrajectory, ModelAnsatz]:
+    """Fit D = ``layers`` over the window and summarise it (``abort``, ``fast``: see
+    :func:`fit_trajectory`; ``shallower``: a fitted shallower depth whose angles, padded with
+    identity layers, are offered as warm starts)."""
+    ansatz = depth_ansatz(basis, settings, layers)
+    warm = None
+    if shallower is not None:
+        family = get_family(settings.family)
+        warm = np.array([family.deepen(row, shallower[0], ansatz) for row in shallower[1].params])
     t0 = time.perf_counter()
     traj = fit_trajectory(ansatz, psi0, settings.dt, settings.n_steps, settings.step_tolerance,
                           settings.maxiter, settings.mode, settings.restarts, settings.seed, progress,
-                          abort_infidelity=abort)
+                          abort_infidelity=abort, fast=fast, warm=warm)
     seconds = time.perf_counter() - t0
     comparison = compare_to_exact(make_observer(traj, basis), traj)
     obs_err = max(comparison[name]["max_error"] for name in CRITERION_OBSERVABLES)
-    cost = ansatz_cost(ansatz, profile, term_costs)
-    if settings.criterion == "fidelity":
-        meets = traj.max_infidelity <= settings.tolerance
-    else:
-        meets = obs_err <= settings.observable_tolerance
+    cost = depth_cost(ansatz, costing)
     row = DepthRow(layers=layers, parameters=ansatz.n_params, max_infidelity=traj.max_infidelity,
                    final_fidelity=float(traj.fidelity[-1]), sum_step_infidelity=float(traj.step_infidelity.sum()),
                    max_leakage=float(traj.leakage.max()), max_observable_error=obs_err, fit_seconds=seconds,
-                   meets_tolerance=bool(meets), reached_time=float(traj.times[-1]),
+                   meets_tolerance=meets(settings, traj.max_infidelity, obs_err), reached_time=float(traj.times[-1]),
                    **CostColumns.of(cost, float(np.min(traj.fidelity))))
-    return row, traj
+    return row, traj, ansatz
 
 
 def trotter_cost(basis: PhysicalBasis, term_costs: dict[str, TermCost], steps: int, order: int) -> CircuitCost:
@@ -137,8 +167,8 @@ def trotter_rows(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSe
     return rows
 
 
-def abort_thresholds(basis: PhysicalBasis, settings: VariationalSettings, profile: HardwareProfile,
-                     term_costs: dict[str, TermCost]) -> dict[int, float | None]:
+def abort_thresholds(basis: PhysicalBasis, settings: VariationalSettings,
+                     costing: Costing) -> dict[int, float | None]:
     """Infidelity above which the fit of depth D can stop: it then neither meets the tolerance
     nor can maximise the predicted total fidelity F_alg(D) F_noise(D).
 
@@ -149,29 +179,33 @@ def abort_thresholds(basis: PhysicalBasis, settings: VariationalSettings, profil
     """
     if settings.criterion != "fidelity":
         return {D: None for D in range(1, settings.max_layers + 1)}
-    noise = {D: ansatz_cost(make_ansatz(basis, settings.family, D, settings.angles, settings.native_spec()),
-                            profile, term_costs).fidelity for D in range(1, settings.max_layers + 1)}
+    noise = {D: depth_cost(depth_ansatz(basis, settings, D), costing).fidelity
+             for D in range(1, settings.max_layers + 1)}
     deepest = noise[settings.max_layers]
     tol = settings.tolerance
     return {D: max(tol, 1.0 - (1.0 - tol) * deepest / noise[D]) if noise[D] > 0 else tol for D in noise}
 
 
 def size_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSettings,
-               profile: HardwareProfile, term_costs: dict[str, TermCost],
-               log: Callable[[str], None] | None = None, baselines: bool = True) -> SizingResult:
+               costing: Costing, log: Callable[[str], None] | None = None,
+               baselines: bool = True, fast: bool = True, warm_starts: bool = WARM_STARTS) -> SizingResult:
     """Scan D = 1 … max_layers until the tolerance is met (plus one deeper for the budget).
 
-    ``baselines=False`` skips the Trotter baseline and the shot counts (used when a second
-    layer family is sized for comparison).
+    ``baselines=False`` skips the Trotter baseline and the shot counts (used when further
+    layer families are sized for comparison). ``fast``: the fast step fits; with
+    ``warm_starts`` depth D + 1 is also offered depth D's angles plus an identity layer.
     """
     from lgt.variational.shots import shots_needed
 
     rows: list[DepthRow] = []
     trajectories: dict[int, VariationalTrajectory] = {}
     chosen = None
-    thresholds = abort_thresholds(basis, settings, profile, term_costs)
+    thresholds = abort_thresholds(basis, settings, costing)
+    shallower = None
     for layers in range(1, settings.max_layers + 1):
-        row, traj = evaluate_depth(basis, psi0, settings, layers, profile, term_costs, abort=thresholds[layers])
+        row, traj, ansatz = evaluate_depth(basis, psi0, settings, layers, costing, abort=thresholds[layers],
+                                           fast=fast, shallower=shallower if fast and warm_starts else None)
+        shallower = (ansatz, traj)
         rows.append(row)
         trajectories[layers] = traj
         if log:
@@ -184,7 +218,27 @@ def size_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSett
     best = max(rows, key=lambda r: r.total_fidelity).layers if rows else None
     if not baselines:
         return SizingResult(rows, chosen, best, [], {}, trajectories)
-    trotter = trotter_rows(basis, psi0, settings, term_costs)
+    trotter = trotter_rows(basis, psi0, settings, costing.terms())
     reference = trajectories[chosen if chosen is not None else rows[-1].layers]
     shots = shots_needed(basis, reference.exact_states, settings.shots_error)
     return SizingResult(rows, chosen, best, trotter, shots, trajectories)
+
+
+def rows_table(row_type: type, rows: list, description: str) -> Table:
+    """A :class:`~lgt.results.Table` with one column per field of the dataclass ``row_type``
+    (``None`` stored as :data:`NONE`)."""
+    names = [f.name for f in fields(row_type)]
+    columns = {n: np.array([NONE if getattr(r, n) is None else getattr(r, n) for r in rows]) for n in names}
+    return Table(columns, {n: u for n, u in COLUMN_UNITS.items() if n in columns}, description)
+
+
+def trajectory_table(trajectories: dict[int, VariationalTrajectory], family: str) -> Table:
+    """Fit diagnostics of every depth in long form: one row per (layers, stored time)."""
+    trajs = [(D, t) for D, t in sorted(trajectories.items())]
+    cat = (lambda get: np.concatenate([get(D, t) for D, t in trajs]) if trajs else np.zeros(0))
+    columns = {"layers": cat(lambda D, t: np.full(t.times.size, D)), "time": cat(lambda D, t: t.times),
+               "fidelity": cat(lambda D, t: t.fidelity), "step_infidelity": cat(lambda D, t: t.step_infidelity),
+               "leakage": cat(lambda D, t: t.leakage), "optimizer_iterations": cat(lambda D, t: t.iterations),
+               "step_seconds": cat(lambda D, t: t.wall_time)}
+    return Table(columns, {n: u for n, u in COLUMN_UNITS.items() if n in columns},
+                 f"{family} layers: accumulated fidelity with the exact state, step fits and leakage per depth and time")
