@@ -13,8 +13,8 @@ import pkgutil
 
 from lgt.variational.families.base import SPACES, LayerFamily, ModelAnsatz
 
-__all__ = ["LayerFamily", "ModelAnsatz", "SPACES", "register_family", "get_family", "family_names",
-           "available_families"]
+__all__ = ["LayerFamily", "ModelAnsatz", "SPACES", "register_family", "unregister_family", "get_family",
+           "family_names", "available_families"]
 
 _REGISTRY: dict[str, LayerFamily] = {}
 _DISCOVERED = False
@@ -37,6 +37,11 @@ def register_family(family: LayerFamily) -> LayerFamily:
         raise ValueError(f"family {family.name!r}: fit_space must be one of {SPACES}, got {family.fit_space!r}")
     _REGISTRY[family.name] = family
     return family
+
+
+def unregister_family(name: str) -> None:
+    """Remove the family ``name`` from the registry (tests; no error if absent)."""
+    _REGISTRY.pop(name, None)
 
 
 def family_names() -> tuple[str, ...]:
