@@ -8,9 +8,12 @@ from dataclasses import asdict, dataclass, field, fields
 from typing import Callable
 
 import numpy as np
+from scipy.sparse.linalg import expm_multiply
 
-from circuits.trotter import trotter_schedule
+from circuits.register import Space
+from circuits.trotter import trotter_circuit, trotter_schedule
 from lgt.basis import PhysicalBasis
+from lgt.hamiltonian import build_hamiltonian
 from lgt.results import Table
 from lgt.variational.ansatz import LayerOptions, ModelAnsatz, ordered_terms
 from lgt.variational.budget import CircuitCost, Costing
@@ -19,7 +22,7 @@ from lgt.variational.families import get_family
 from lgt.variational.native_cost import TermCost, summed_cost
 from lgt.variational.settings import VariationalSettings
 from lgt.variational.stepper import VariationalTrajectory, fit_trajectory
-from lgt.variational.trotter_baseline import least_trotter_steps
+from lgt.variational.trotter_baseline import least_trotter_steps, trotter_groups, trotter_max_infidelity
 
 #: Fast path: offer depth D + 1 the angles of depth D plus an identity layer as warm starts.
 WARM_STARTS = True
@@ -76,11 +79,13 @@ class DepthRow(CostColumns):
 
 @dataclass
 class TrotterRow(CostColumns):
-    """Least Trotter steps of one order meeting the tolerance, with the native cost at T."""
+    """Least Trotter steps of one order meeting the tolerance, with the native cost at T; the
+    errors are those of that step count (of ``trotter_max_steps`` when none was enough)."""
 
     order: int
     steps: int | None
     max_infidelity: float
+    max_observable_error: float
 
 
 @dataclass
@@ -155,15 +160,46 @@ def trotter_cost(basis: PhysicalBasis, term_costs: dict[str, TermCost], steps: i
     return CircuitCost(total.counts, total.fidelity, total.duration_us)
 
 
+def trotter_observable_error(basis: PhysicalBasis, psi0: np.ndarray, t_final: float, n_steps: int,
+                             order: int) -> float:
+    """Largest |⟨O⟩_Trotter − ⟨O⟩_exact| over t_k = k T/n and the components of the criterion
+    observables (diagonal in the field basis, so ⟨O⟩ = Σ_i |ψ_i|² O_i)."""
+    from lgt.variational.shots import diagonal_observable_tables
+
+    tables = diagonal_observable_tables(basis)
+    table = np.hstack([tables[name] for name in CRITERION_OBSERVABLES])
+    dt = t_final / n_steps
+    step = trotter_circuit(Space.subspace(basis.dimension), trotter_groups(basis), dt, 1, order)
+    A = (-1j * dt) * build_hamiltonian(basis)
+    exact = approx = np.asarray(psi0, dtype=np.complex128)
+    worst = 0.0
+    for _ in range(n_steps):
+        exact, approx = expm_multiply(A, exact), step.apply(None, approx)
+        worst = max(worst, float(np.max(np.abs((np.abs(exact) ** 2 - np.abs(approx) ** 2) @ table))))
+    return worst
+
+
 def trotter_rows(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSettings,
                  term_costs: dict[str, TermCost]) -> list[TrotterRow]:
-    """Least Trotter steps meeting the tolerance for each configured order, with native costs."""
+    """Least Trotter steps meeting the tolerance for each configured order, with native costs.
+
+    The acceptance rule is the depth search's (:func:`meets`): max infidelity ≤ ``tolerance``, or
+    with ``criterion = "observables"`` max error of ⟨L_n⟩ and ν ≤ ``observable_tolerance``.
+    """
     rows = []
+    T = settings.t_final
     for order in settings.trotter_orders:
-        res = least_trotter_steps(basis, psi0, settings.t_final, settings.tolerance, order, settings.trotter_max_steps)
+        if settings.criterion == "fidelity":
+            res = least_trotter_steps(basis, psi0, T, settings.tolerance, order, settings.trotter_max_steps)
+        else:
+            res = least_trotter_steps(basis, psi0, T, settings.observable_tolerance, order, settings.trotter_max_steps,
+                                      measure=lambda n: trotter_observable_error(basis, psi0, T, n, order))
+        n = res.steps or settings.trotter_max_steps  # errors of the last count tried when none was enough
+        infidelity = trotter_max_infidelity(basis, psi0, T, n, order)[0]
         cost = None if res.steps is None else trotter_cost(basis, term_costs, res.steps, order)
-        rows.append(TrotterRow(order=order, steps=res.steps, max_infidelity=res.max_infidelity,
-                               **CostColumns.of(cost, 1 - res.max_infidelity)))
+        rows.append(TrotterRow(order=order, steps=res.steps, max_infidelity=infidelity,
+                               max_observable_error=trotter_observable_error(basis, psi0, T, n, order),
+                               **CostColumns.of(cost, 1 - infidelity)))
     return rows
 
 
