@@ -72,3 +72,17 @@ def geometric_tensor(psi: np.ndarray, J: np.ndarray) -> np.ndarray:
     """Real symmetric (P, P) metric Re(J†J) − Re((J†ψ)(ψ†J)) for a normalised ψ."""
     a = psi.conj() @ J
     return (J.conj().T @ J).real - np.outer(a, a.conj()).real
+
+
+def mclachlan_velocity(circuit: ParametrizedCircuit, params: np.ndarray, psi0: np.ndarray, H,
+                       rcond: float = 1e-6) -> np.ndarray:
+    """θ̇ of McLachlan's variational principle, G θ̇ = Im(J†Hψ) − Im((J†ψ)⟨ψ|H|ψ⟩) (global phase
+    projected out), solved with the pseudo-inverse of G (eigenvalues below ``rcond`` times the
+    largest dropped). ``H`` acts on the circuit's space (lattice energy units; θ̇ per lattice time)."""
+    psi, J = state_and_jacobian(circuit, params, psi0)
+    h_psi = H @ psi
+    a = J.conj().T @ psi
+    force = (J.conj().T @ h_psi).imag - (a * np.vdot(psi, h_psi)).imag
+    w, U = np.linalg.eigh(geometric_tensor(psi, J))
+    keep = w > rcond * max(w.max(), 0.0)
+    return U[:, keep] @ ((U[:, keep].T @ force) / w[keep])
