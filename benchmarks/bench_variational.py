@@ -15,7 +15,7 @@ against the same layers on the register, hardware layers, and a cProfile summary
 
 Usage::
 
-    python benchmarks/bench_variational.py [sizing] [--sites 6] [--t-final 2] [--only fast|plain]
+    python benchmarks/bench_variational.py [sizing] [--sites 6] [--t-final 2] [--variants plain,fast,fast-nowarm]
     python benchmarks/bench_variational.py predictor
     python benchmarks/bench_variational.py per-step [--steps 5] [--sites 8] [--no-hardware]
 """
@@ -43,10 +43,12 @@ def _arg(name: str, default: str) -> str:
     return sys.argv[sys.argv.index(name) + 1] if name in sys.argv else default
 
 
-def sizing_run(sites: int, t_final: float, fast: bool) -> dict:
+def sizing_run(sites: int, t_final: float, fast: bool, warm: bool = True) -> dict:
     """One ``size`` run; wall time, chosen depth and mean iterations per step of each family."""
+    from lgt.variational import sizing
     from lgt.variational.workflow import run_size
 
+    sizing.WARM_STARTS = warm
     config = {"model": {"sites": sites, "hopping": 1.0, "mass": 0.5, "coupling": 1.0, "levels": 3},
               "initial": {"kind": "vacuum"},
               "variational": {"dt": 0.1, "t_final": t_final, "tolerance": 0.01, "fast_fit": fast}}
@@ -64,18 +66,16 @@ def sizing_run(sites: int, t_final: float, fast: bool) -> dict:
 def sizing_main() -> None:
     sites = int(_arg("--sites", "6"))
     t_final = float(_arg("--t-final", "2"))
-    only = _arg("--only", "")
+    variants = _arg("--variants", "plain,fast").split(",")
     print(f"N = {sites}, T = {t_final}: load {os.getloadavg()[0]:.2f} (1-min average) at start")
     runs = {}
-    for label, fast in (("plain", False), ("fast", True)):
-        if only and only != label:
-            continue
-        runs[label] = r = sizing_run(sites, t_final, fast)
+    for label in variants:
+        runs[label] = r = sizing_run(sites, t_final, label != "plain", warm=label != "fast-nowarm")
         fams = ", ".join(f"{f}: D = {v[0] if v[0] > 0 else 'none'} ({v[1]:.0f} iterations/step)"
                          for f, v in r.items() if f not in ("seconds", "cpu"))
         print(f"{label:6s} {r['seconds']:8.1f} s wall {r['cpu']:8.1f} s CPU   {fams}   load {os.getloadavg()[0]:.2f}",
               flush=True)
-    if len(runs) == 2:
+    if "plain" in runs and "fast" in runs:
         same = all(runs["plain"][f][0] == runs["fast"][f][0] for f in runs["plain"] if f not in ("seconds", "cpu"))
         print(f"speed-up {runs['plain']['seconds'] / runs['fast']['seconds']:.1f}x wall, "
               f"{runs['plain']['cpu'] / runs['fast']['cpu']:.1f}x CPU; same chosen depths: {same}")

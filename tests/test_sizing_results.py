@@ -169,3 +169,4 @@ def test_fast_path_chooses_the_same_depths_as_the_plain_path(basis):
         plain = size_depth(basis, psi0, settings, costing, baselines=False, fast=False)
         fast = size_depth(basis, psi0, settings, costing, baselines=False, fast=True)
         assert plain.chosen is not None and fast.chosen == plain.chosen
+        assert fast.best_under_noise == plain.best_under_noise

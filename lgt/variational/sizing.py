@@ -203,6 +203,12 @@ def trotter_rows(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSe
     return rows
 
 
+def noise_fidelities(basis: PhysicalBasis, settings: VariationalSettings, costing: Costing) -> dict[int, float]:
+    """Predicted noise fidelity F_noise(D) of the configured family for D = 1 … max_layers."""
+    return {D: depth_cost(depth_ansatz(basis, settings, D), costing).fidelity
+            for D in range(1, settings.max_layers + 1)}
+
+
 def abort_thresholds(basis: PhysicalBasis, settings: VariationalSettings,
                      costing: Costing) -> dict[int, float | None]:
     """Infidelity above which the fit of depth D can stop: it then neither meets the tolerance
@@ -212,11 +218,17 @@ def abort_thresholds(basis: PhysicalBasis, settings: VariationalSettings,
     F_alg(D) > (1 − tol) F_noise(C) / F_noise(D) ≥ (1 − tol) F_noise(max_layers) / F_noise(D)
     (F_noise falls with depth), so D stops once 1 − F(t) exceeds
     max(tol, 1 − (1 − tol) F_noise(max_layers) / F_noise(D)). Only with the fidelity criterion.
+
+    The fast path of :func:`size_depth` also uses the best total B found so far among the
+    shallower depths: D can only win if F_alg(D) > B / F_noise(D), and F_alg is the minimum of
+    F(t) over the window, so D stops once 1 − F(t) > max(tol, 1 − B / F_noise(D)) as well. Neither
+    rule changes the chosen depth (an aborted depth has 1 − F > tol) or the best depth under
+    noise (an aborted depth's total is below B); aborted rows report their window up to
+    ``reached_time``.
     """
     if settings.criterion != "fidelity":
         return {D: None for D in range(1, settings.max_layers + 1)}
-    noise = {D: depth_cost(depth_ansatz(basis, settings, D), costing).fidelity
-             for D in range(1, settings.max_layers + 1)}
+    noise = noise_fidelities(basis, settings, costing)
     deepest = noise[settings.max_layers]
     tol = settings.tolerance
     return {D: max(tol, 1.0 - (1.0 - tol) * deepest / noise[D]) if noise[D] > 0 else tol for D in noise}
@@ -224,24 +236,32 @@ def abort_thresholds(basis: PhysicalBasis, settings: VariationalSettings,
 
 def size_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSettings,
                costing: Costing, log: Callable[[str], None] | None = None,
-               baselines: bool = True, fast: bool = True, warm_starts: bool = WARM_STARTS) -> SizingResult:
+               baselines: bool = True, fast: bool = True, warm_starts: bool | None = None) -> SizingResult:
     """Scan D = 1 … max_layers until the tolerance is met (plus one deeper for the budget).
 
     ``baselines=False`` skips the Trotter baseline and the shot counts (used when further
     layer families are sized for comparison). ``fast``: the fast step fits; with
-    ``warm_starts`` depth D + 1 is also offered depth D's angles plus an identity layer.
+    ``warm_starts`` (default :data:`WARM_STARTS`) depth D + 1 is also offered depth D's angles
+    plus an identity layer.
     """
+    warm_starts = WARM_STARTS if warm_starts is None else warm_starts
     from lgt.variational.shots import shots_needed
 
     rows: list[DepthRow] = []
     trajectories: dict[int, VariationalTrajectory] = {}
     chosen = None
     thresholds = abort_thresholds(basis, settings, costing)
+    noise = noise_fidelities(basis, settings, costing)
     shallower = None
+    best_total = 0.0
     for layers in range(1, settings.max_layers + 1):
-        row, traj, ansatz = evaluate_depth(basis, psi0, settings, layers, costing, abort=thresholds[layers],
+        abort = thresholds[layers]
+        if fast and abort is not None and noise[layers] > 0:
+            abort = max(settings.tolerance, min(abort, 1.0 - best_total / noise[layers]))
+        row, traj, ansatz = evaluate_depth(basis, psi0, settings, layers, costing, abort=abort,
                                            fast=fast, shallower=shallower if fast and warm_starts else None)
         shallower = (ansatz, traj)
+        best_total = max(best_total, row.total_fidelity)
         rows.append(row)
         trajectories[layers] = traj
         if log:

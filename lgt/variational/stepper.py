@@ -30,10 +30,6 @@ JITTER = 0.05
 #: 6-site hardware layers: see docs/variational.md).
 STALL_WINDOW = 50
 STALL_GAIN = 0.01
-#: Fast path: a restart is tried only when the fit is stuck, i.e. ended above its threshold
-#: with less than this factor of improvement over its start (a saddle such as the identity
-#: point of native layers); a fit that settled on a floor is not restarted.
-STUCK_GAIN = 2.0
 
 
 @dataclass
@@ -101,7 +97,7 @@ def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: in
     abort_infidelity : stop early once 1 − F(t_k) against the exact state exceeds this (the
         window can no longer meet that tolerance); the trajectory then ends at that step.
     fast : the fast path: stall stop and restarts only when stuck (see :data:`STALL_WINDOW`,
-        :data:`STUCK_GAIN`); ``False`` is the plain path (every step to its threshold or
+        :func:`_fit_step_fast`); ``False`` is the plain path (every step to its threshold or
         ``maxiter``, every missed step restarted).
     warm : optional (T, P) start angles per step (e.g. a shallower depth's fit padded with
         identity layers); used at a step when it starts closer than the extrapolation.
@@ -171,14 +167,14 @@ def _fit_step_plain(circuit, v0, target, guess, previous, step_tolerance, maxite
 
 def _fit_step_fast(circuit, v0, target, guess, step_tolerance, maxiter, restarts, rng) -> FitResult:
     """The fast step fit: L-BFGS with the stall stop; restarts from jittered angles only while
-    the fit is stuck (gained less than :data:`STUCK_GAIN` over its start)."""
-    res, start_infidelity = _lbfgs_stall(circuit, v0, target, guess, step_tolerance, maxiter)
+    the optimiser converged to a stationary point above the threshold (a saddle such as the
+    identity point of native layers), never after a stall or ``maxiter`` (a floor of the depth)."""
+    res = _lbfgs_stall(circuit, v0, target, guess, step_tolerance, maxiter)
     for _ in range(restarts):
-        missed = 1.0 - res.fidelity
-        if missed <= step_tolerance or missed * STUCK_GAIN < start_infidelity:
+        if 1.0 - res.fidelity <= step_tolerance or not res.success:
             break
         jitter = res.params + rng.normal(scale=JITTER, size=guess.size)
-        res = _better_fit(res, _lbfgs_stall(circuit, v0, target, jitter, step_tolerance, maxiter)[0])
+        res = _better_fit(res, _lbfgs_stall(circuit, v0, target, jitter, step_tolerance, maxiter))
     return res
 
 
@@ -192,9 +188,10 @@ def _better_fit(res: FitResult, retry: FitResult) -> FitResult:
     return res
 
 
-def _lbfgs_stall(circuit, v0, target, start, stop_infidelity, maxiter) -> tuple[FitResult, float]:
-    """(L-BFGS-B fit of |<target|C(θ)|v0>|² from ``start`` that stops at ``stop_infidelity``, at
-    ``maxiter`` or on a stall, infidelity at the start)."""
+def _lbfgs_stall(circuit, v0, target, start, stop_infidelity, maxiter) -> FitResult:
+    """L-BFGS-B fit of |<target|C(θ)|v0>|² from ``start`` that stops at ``stop_infidelity``, at
+    ``maxiter`` or on a stall (see :data:`STALL_WINDOW`); ``success`` is True only when the
+    optimiser itself converged (a stationary point)."""
     norm = float(np.vdot(target, target).real * np.vdot(v0, v0).real)
     t0 = time.perf_counter()
 
@@ -204,22 +201,26 @@ def _lbfgs_stall(circuit, v0, target, start, stop_infidelity, maxiter) -> tuple[
 
     first, _ = loss(start)
     if first <= stop_infidelity or start.size == 0:
-        return FitResult(start.copy(), 1.0 - first, 0, 1, time.perf_counter() - t0), first
+        return FitResult(start.copy(), 1.0 - first, 0, 1, time.perf_counter() - t0, False, "start")
     history = [first]
+    stopped: list[str] = []
 
     def watch(intermediate_result) -> None:
         value = intermediate_result.fun
         history.append(value)
         if value <= stop_infidelity:
-            raise StopIteration
-        if len(history) > STALL_WINDOW and history[-1 - STALL_WINDOW] - value < STALL_GAIN * value:
+            stopped.append("threshold")
+        elif len(history) > STALL_WINDOW and history[-1 - STALL_WINDOW] - value < STALL_GAIN * value:
+            stopped.append("stall")
+        if stopped:
             raise StopIteration
 
     with single_threaded_blas():
         out = minimize(loss, start, jac=True, method="L-BFGS-B", callback=watch,
                        options={"maxiter": maxiter, "ftol": 1e-14, "gtol": 1e-14})
+    converged = bool(out.success) and not stopped and out.nit < maxiter
     return FitResult(np.asarray(out.x), float(1.0 - out.fun), int(out.nit), int(out.nfev),
-                     time.perf_counter() - t0, bool(out.success), str(out.message)), first
+                     time.perf_counter() - t0, converged, stopped[0] if stopped else str(out.message))
 
 
 def _better_start(circuit, v0: np.ndarray, target: np.ndarray, candidates: list[np.ndarray]) -> np.ndarray:
