@@ -31,8 +31,8 @@ class VariationalSettings:
     can run the model, so that all appear in native gates.
 
     ``fast_fit``: the fast step fits of :func:`lgt.variational.stepper.fit_trajectory` (stall
-    stop, restarts only when stuck, warm starts from the next shallower depth); ``false`` runs
-    the plain fits (for comparisons).
+    stop, restarts only at stationary points) and the tighter depth abort of
+    :func:`lgt.variational.sizing.size_depth`; ``false`` runs the plain fits (for comparisons).
 
     ``step_tolerance`` defaults to tolerance / n_steps²: by the triangle inequality for the
     Bures angle, n steps of infidelity ε each keep 1 − F(T) ≤ n² ε even when the errors add
