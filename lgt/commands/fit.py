@@ -14,6 +14,8 @@ from lgt.commands.tolerance import fit_meets_tolerance, report
 
 def fit_summary(result) -> dict:
     """JSON summary of a fit run: the depth, its table row, the Trotter baseline and the budget."""
+    from lgt.variational.workflow import trotter_summary
+
     a = result.attributes
     row = {key: a[key] for key in ("layers", "parameters", "max_infidelity", "final_fidelity",
                                    "sum_step_infidelity", "max_leakage", "single_qudit_gates",
@@ -21,10 +23,11 @@ def fit_summary(result) -> dict:
     row["total_fidelity"] = (1 - a["max_infidelity"]) * a["noise_fidelity"]
     series = result.series
     return {
+        "meets_tolerance": a["meets_tolerance"], "criterion": a["criterion"], "tolerance": a["tolerance"],
         "layers": a["layers"],
         "family": a["family"],
         "table": [row],
-        "trotter": json.loads(a["trotter_json"]),
+        "trotter": trotter_summary(result),
         "budget": {"noise_fidelity": a["noise_fidelity"], "total_fidelity": row["total_fidelity"],
                    "hardware_profile": a["hardware_profile"]},
         "times": series["fidelity"].times.tolist(),

@@ -15,14 +15,13 @@ from lgt.commands.tolerance import report
 
 def _run(args: argparse.Namespace) -> int:
     from lgt.tasks import get_task
+    from lgt.variational.workflow import size_summary_dict
 
     resolved = resolve(args, "size")
     result = get_task("size").run(resolved, log=stderr_log(args))
-    summary = json.loads(result.attributes["summary_json"])
+    summary = size_summary_dict(result)
     write_output(args, result)
     v = resolved["variational"]
-    summary["tolerance"] = v["tolerance"]
-    summary["meets_tolerance"] = bool(result.attributes.get("meets_tolerance", summary["layers"] is not None))
     status = report(summary["meets_tolerance"], f"no depth up to max_layers = {v['max_layers']}", v)
     if args.json:
         print(json.dumps(summary))

@@ -12,12 +12,14 @@ from __future__ import annotations
 
 from collections import Counter
 from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
 
+from circuits.circuit import ParametrizedCircuit
 from circuits.hardware import HardwareProfile, hardware_key
 from circuits.noise import noisy_density_matrix
-from lgt.variational.ansatz import ModelAnsatz
+from lgt.variational.families import ModelAnsatz, get_family
 from lgt.variational.native_cost import NativeCounts, TermCost, summed_cost
 
 
@@ -30,19 +32,42 @@ class CircuitCost(NativeCounts):
     duration_us: float
 
 
-def ansatz_cost(ansatz: ModelAnsatz, profile: HardwareProfile, term_costs: dict[str, TermCost]) -> CircuitCost:
-    """Native cost of the whole D-layer circuit (the same at every time step).
+class Costing:
+    """What a layer family needs to price its circuits: the hardware profile and the native cost
+    of each model term exponential (computed on first use by ``term_costs()``, e.g.
+    :func:`lgt.variational.native_cost.model_term_costs`, or given as a dict)."""
 
-    Hardware layers are native already; symmetric layers cost the sum of their terms'
-    compiled exponentials (durations added: a conservative schedule).
-    """
-    if ansatz.family == "hardware":
-        c = ansatz.circuit
-        counts = Counter(hardware_key(op.gate) for op in c.ops)
-        return CircuitCost(dict(counts), profile.predicted_fidelity(c), profile.duration_us(c))
-    layer = summed_cost([term_costs[label] for label in ansatz.labels], "layer")
-    counts = {k: v * ansatz.layers for k, v in layer.counts.items()}
-    return CircuitCost(counts, layer.fidelity ** ansatz.layers, layer.duration_us * ansatz.layers)
+    def __init__(self, profile: HardwareProfile,
+                 term_costs: dict[str, TermCost] | Callable[[], dict[str, TermCost]]) -> None:
+        self.profile = profile
+        self._terms = term_costs
+
+    def terms(self) -> dict[str, TermCost]:
+        """Native cost of every term exponential, keyed ``"hopping3"``, ``"mass0"``, …"""
+        if callable(self._terms):
+            self._terms = self._terms()
+        return self._terms
+
+    def of_circuit(self, circuit: ParametrizedCircuit) -> CircuitCost:
+        """Cost of a circuit of native gates as it stands (counts, product of fidelities, ASAP duration)."""
+        counts = Counter(hardware_key(op.gate) for op in circuit.ops)
+        return CircuitCost(dict(counts), self.profile.predicted_fidelity(circuit), self.profile.duration_us(circuit))
+
+    def of_terms(self, labels: list[str], repeats: int) -> CircuitCost:
+        """Cost of ``repeats`` repetitions of the term exponentials ``labels`` (durations added:
+        a conservative schedule)."""
+        terms = self.terms()
+        layer = summed_cost([terms[label] for label in labels], "layer")
+        counts = {k: v * repeats for k, v in layer.counts.items()}
+        return CircuitCost(counts, layer.fidelity ** repeats, layer.duration_us * repeats)
+
+
+def ansatz_cost(ansatz: ModelAnsatz, profile: HardwareProfile,
+                term_costs: dict[str, TermCost] | Costing) -> CircuitCost:
+    """Native cost of the whole D-layer circuit (the same at every time step), as its family
+    prices it (:meth:`~lgt.variational.families.base.LayerFamily.native_cost`)."""
+    costing = term_costs if isinstance(term_costs, Costing) else Costing(profile, term_costs)
+    return get_family(ansatz.family).native_cost(ansatz, costing)
 
 
 def density_matrix_check(ansatz: ModelAnsatz, params: np.ndarray, psi0_register: np.ndarray,

@@ -9,7 +9,7 @@ from typing import Any, Mapping
 from circuits.layers import NativeLayerSpec
 from lgt.config import as_bool, as_choice, as_float, as_fraction, as_int, check_keys, config_folder, table
 from lgt.errors import ConfigError
-from lgt.variational.ansatz import ANGLE_MODES, FAMILIES
+from lgt.variational.ansatz import ANGLE_MODES, family_names
 from lgt.variational.stepper import MODES
 
 CRITERIA = ("fidelity", "observables")
@@ -18,7 +18,7 @@ VARIATIONAL_KEYS = ("family", "layers", "angles", "dt", "t_final", "tolerance", 
                     "maxiter", "restarts", "mode", "max_layers", "criterion", "observable_tolerance",
                     "entangler", "entangler_levels", "trotter_orders", "trotter_max_steps",
                     "compile", "compile_fidelity", "shots_error", "seed", "hardware_profile",
-                    "compare_families")
+                    "compare_families", "fast_fit")
 #: Bounds of our choosing that keep every run finite (documented in the README):
 #: depth D, fitted steps T/dt, optimizer iterations, restarts and Trotter steps.
 MAX_LAYERS = 200
@@ -34,8 +34,12 @@ MIN_SHOTS_ERROR = 1e-6
 class VariationalSettings:
     """Resolved ``[variational]`` settings (times in lattice units).
 
-    ``compare_families``: ``fluxline size`` also sizes the other layer family (when its space
-    fits), so that both appear in native gates.
+    ``compare_families``: ``fluxline size`` also sizes every other registered layer family that
+    can run the model, so that all appear in native gates.
+
+    ``fast_fit``: the fast step fits of :func:`lgt.variational.stepper.fit_trajectory` (stall
+    stop, restarts only at stationary points) and the tighter depth abort of
+    :func:`lgt.variational.sizing.size_depth`; ``false`` runs the plain fits (for comparisons).
 
     ``step_tolerance`` defaults to tolerance / n_steps²: by the triangle inequality for the
     Bures angle, n steps of infidelity ε each keep 1 − F(T) ≤ n² ε even when the errors add
@@ -66,6 +70,7 @@ class VariationalSettings:
     seed: int = 0
     hardware_profile: str | None = None
     compare_families: bool = True
+    fast_fit: bool = True
 
     @property
     def n_steps(self) -> int:
@@ -101,7 +106,7 @@ def resolve_variational(config: Mapping[str, Any], levels: int) -> VariationalSe
     p = "variational."
     d = VariationalSettings()
     kw: dict[str, Any] = {}
-    kw["family"] = as_choice(section.get("family", d.family), p + "family", FAMILIES)
+    kw["family"] = as_choice(section.get("family", d.family), p + "family", family_names())
     kw["layers"] = as_int(section.get("layers", d.layers), p + "layers", minimum=1, maximum=MAX_LAYERS)
     kw["angles"] = as_choice(section.get("angles", d.angles), p + "angles", ANGLE_MODES)
     kw["dt"] = as_float(section.get("dt", d.dt), p + "dt", positive=True)
@@ -144,7 +149,7 @@ def resolve_variational(config: Mapping[str, Any], levels: int) -> VariationalSe
     kw["trotter_orders"] = tuple(sorted({int(o) for o in orders}))
     kw["trotter_max_steps"] = as_int(section.get("trotter_max_steps", d.trotter_max_steps),
                                      p + "trotter_max_steps", minimum=1, maximum=MAX_TROTTER_STEPS)
-    for name in ("compile", "compare_families"):
+    for name in ("compile", "compare_families", "fast_fit"):
         kw[name] = as_bool(section.get(name, getattr(d, name)), p + name)
     kw["compile_fidelity"] = as_fraction(section.get("compile_fidelity", d.compile_fidelity),
                                          p + "compile_fidelity")

@@ -4,24 +4,38 @@
 from __future__ import annotations
 
 import time
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, fields
 from typing import Callable
 
 import numpy as np
+from scipy.sparse.linalg import expm_multiply
 
-from circuits.hardware import HardwareProfile
-from circuits.trotter import trotter_schedule
+from circuits.register import Space
+from circuits.trotter import trotter_circuit, trotter_schedule
 from lgt.basis import PhysicalBasis
-from lgt.variational.ansatz import make_ansatz, ordered_terms
-from lgt.variational.budget import CircuitCost, ansatz_cost
+from lgt.hamiltonian import build_hamiltonian
+from lgt.results import Table
+from lgt.variational.ansatz import LayerOptions, ModelAnsatz, ordered_terms
+from lgt.variational.budget import CircuitCost, Costing
 from lgt.variational.comparison import compare_to_exact, make_observer
+from lgt.variational.families import get_family
 from lgt.variational.native_cost import TermCost, summed_cost
 from lgt.variational.settings import VariationalSettings
 from lgt.variational.stepper import VariationalTrajectory, fit_trajectory
-from lgt.variational.trotter_baseline import least_trotter_steps
+from lgt.variational.trotter_baseline import least_trotter_steps, trotter_groups, trotter_max_infidelity
 
+#: Offer depth D + 1 the angles of depth D plus an identity layer as warm starts (fast path only).
+#: Off by default: measured on the 6-site chain to T = 2 it saves no time and finds shallower
+#: depths meeting the tolerance than the plain fits (symmetric 3 instead of 4, hardware 7 instead
+#: of 8; those fits are verified against the exact state), so the chosen depths would differ.
+WARM_STARTS = False
 #: Observables whose errors decide the ``observables`` criterion.
 CRITERION_OBSERVABLES = ("electric_field", "particle_density")
+#: Units of the result columns that have one (the others are counts or dimensionless).
+COLUMN_UNITS = {"duration_us": "us", "fit_seconds": "s", "reached_time": "lattice time", "time": "lattice time",
+                "step_seconds": "s"}
+#: Stored in integer columns for "none" (no Trotter step count met the tolerance, no depth chosen).
+NONE = -1
 
 
 @dataclass
@@ -68,11 +82,13 @@ class DepthRow(CostColumns):
 
 @dataclass
 class TrotterRow(CostColumns):
-    """Least Trotter steps of one order meeting the tolerance, with the native cost at T."""
+    """Least Trotter steps of one order meeting the tolerance, with the native cost at T; the
+    errors are those of that step count (of ``trotter_max_steps`` when none was enough)."""
 
     order: int
     steps: int | None
     max_infidelity: float
+    max_observable_error: float
 
 
 @dataclass
@@ -88,30 +104,52 @@ class SizingResult:
         return [asdict(r) for r in self.rows]
 
 
+def depth_ansatz(basis: PhysicalBasis, settings: VariationalSettings, layers: int):
+    """D = ``layers`` layers of the configured family on its fit space."""
+    return get_family(settings.family).build(basis, layers, LayerOptions.from_settings(settings))
+
+
+def depth_cost(ansatz, costing: Costing) -> CircuitCost:
+    """Native cost of a family's D-layer circuit."""
+    return get_family(ansatz.family).native_cost(ansatz, costing)
+
+
+def meets(settings: VariationalSettings, max_infidelity: float, max_observable_error: float) -> bool:
+    """The one acceptance rule: ``criterion = "fidelity"`` needs max_t (1 − F(t)) ≤ ``tolerance``;
+    ``"observables"`` needs the largest error of ⟨L_n⟩ and ν over the window ≤ ``observable_tolerance``
+    (for the depth search and the Trotter baseline alike)."""
+    if settings.criterion == "fidelity":
+        return max_infidelity <= settings.tolerance
+    return max_observable_error <= settings.observable_tolerance
+
+
 def evaluate_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSettings, layers: int,
-                   profile: HardwareProfile, term_costs: dict[str, TermCost],
-                   progress: Callable[[int], None] | None = None,
-                   abort: float | None = None) -> tuple[DepthRow, VariationalTrajectory]:
-    """Fit D = ``layers`` over the window and summarise it (``abort``: see :func:`fit_trajectory`)."""
-    ansatz = make_ansatz(basis, settings.family, layers, settings.angles, settings.native_spec())
+                   costing: Costing, progress: Callable[[int], None] | None = None,
+                   abort: float | None = None, fast: bool = True,
+                   shallower: tuple[ModelAnsatz, VariationalTrajectory] | None = None,
+                   ) -> tuple[DepthRow, VariationalTrajectory, ModelAnsatz]:
+    """Fit D = ``layers`` over the window and summarise it (``abort``, ``fast``: see
+    :func:`fit_trajectory`; ``shallower``: a fitted shallower depth whose angles, padded with
+    identity layers, are offered as warm starts)."""
+    ansatz = depth_ansatz(basis, settings, layers)
+    warm = None
+    if shallower is not None:
+        family = get_family(settings.family)
+        warm = np.array([family.deepen(row, shallower[0], ansatz) for row in shallower[1].params])
     t0 = time.perf_counter()
     traj = fit_trajectory(ansatz, psi0, settings.dt, settings.n_steps, settings.step_tolerance,
                           settings.maxiter, settings.mode, settings.restarts, settings.seed, progress,
-                          abort_infidelity=abort)
+                          abort_infidelity=abort, fast=fast, warm=warm)
     seconds = time.perf_counter() - t0
     comparison = compare_to_exact(make_observer(traj, basis), traj)
     obs_err = max(comparison[name]["max_error"] for name in CRITERION_OBSERVABLES)
-    cost = ansatz_cost(ansatz, profile, term_costs)
-    if settings.criterion == "fidelity":
-        meets = traj.max_infidelity <= settings.tolerance
-    else:
-        meets = obs_err <= settings.observable_tolerance
+    cost = depth_cost(ansatz, costing)
     row = DepthRow(layers=layers, parameters=ansatz.n_params, max_infidelity=traj.max_infidelity,
                    final_fidelity=float(traj.fidelity[-1]), sum_step_infidelity=float(traj.step_infidelity.sum()),
                    max_leakage=float(traj.leakage.max()), max_observable_error=obs_err, fit_seconds=seconds,
-                   meets_tolerance=bool(meets), reached_time=float(traj.times[-1]),
+                   meets_tolerance=meets(settings, traj.max_infidelity, obs_err), reached_time=float(traj.times[-1]),
                    **CostColumns.of(cost, float(np.min(traj.fidelity))))
-    return row, traj
+    return row, traj, ansatz
 
 
 def trotter_cost(basis: PhysicalBasis, term_costs: dict[str, TermCost], steps: int, order: int) -> CircuitCost:
@@ -125,20 +163,57 @@ def trotter_cost(basis: PhysicalBasis, term_costs: dict[str, TermCost], steps: i
     return CircuitCost(total.counts, total.fidelity, total.duration_us)
 
 
+def trotter_observable_error(basis: PhysicalBasis, psi0: np.ndarray, t_final: float, n_steps: int,
+                             order: int) -> float:
+    """Largest |⟨O⟩_Trotter − ⟨O⟩_exact| over t_k = k T/n and the components of the criterion
+    observables (diagonal in the field basis, so ⟨O⟩ = Σ_i |ψ_i|² O_i)."""
+    from lgt.variational.shots import diagonal_observable_tables
+
+    tables = diagonal_observable_tables(basis)
+    table = np.hstack([tables[name] for name in CRITERION_OBSERVABLES])
+    dt = t_final / n_steps
+    step = trotter_circuit(Space.subspace(basis.dimension), trotter_groups(basis), dt, 1, order)
+    A = (-1j * dt) * build_hamiltonian(basis)
+    exact = approx = np.asarray(psi0, dtype=np.complex128)
+    worst = 0.0
+    for _ in range(n_steps):
+        exact, approx = expm_multiply(A, exact), step.apply(None, approx)
+        worst = max(worst, float(np.max(np.abs((np.abs(exact) ** 2 - np.abs(approx) ** 2) @ table))))
+    return worst
+
+
 def trotter_rows(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSettings,
                  term_costs: dict[str, TermCost]) -> list[TrotterRow]:
-    """Least Trotter steps meeting the tolerance for each configured order, with native costs."""
+    """Least Trotter steps meeting the tolerance for each configured order, with native costs.
+
+    The acceptance rule is the depth search's (:func:`meets`): max infidelity ≤ ``tolerance``, or
+    with ``criterion = "observables"`` max error of ⟨L_n⟩ and ν ≤ ``observable_tolerance``.
+    """
     rows = []
+    T = settings.t_final
     for order in settings.trotter_orders:
-        res = least_trotter_steps(basis, psi0, settings.t_final, settings.tolerance, order, settings.trotter_max_steps)
+        if settings.criterion == "fidelity":
+            res = least_trotter_steps(basis, psi0, T, settings.tolerance, order, settings.trotter_max_steps)
+        else:
+            res = least_trotter_steps(basis, psi0, T, settings.observable_tolerance, order, settings.trotter_max_steps,
+                                      measure=lambda n: trotter_observable_error(basis, psi0, T, n, order))
+        n = res.steps or settings.trotter_max_steps  # errors of the last count tried when none was enough
+        infidelity = trotter_max_infidelity(basis, psi0, T, n, order)[0]
         cost = None if res.steps is None else trotter_cost(basis, term_costs, res.steps, order)
-        rows.append(TrotterRow(order=order, steps=res.steps, max_infidelity=res.max_infidelity,
-                               **CostColumns.of(cost, 1 - res.max_infidelity)))
+        rows.append(TrotterRow(order=order, steps=res.steps, max_infidelity=infidelity,
+                               max_observable_error=trotter_observable_error(basis, psi0, T, n, order),
+                               **CostColumns.of(cost, 1 - infidelity)))
     return rows
 
 
-def abort_thresholds(basis: PhysicalBasis, settings: VariationalSettings, profile: HardwareProfile,
-                     term_costs: dict[str, TermCost]) -> dict[int, float | None]:
+def noise_fidelities(basis: PhysicalBasis, settings: VariationalSettings, costing: Costing) -> dict[int, float]:
+    """Predicted noise fidelity F_noise(D) of the configured family for D = 1 … max_layers."""
+    return {D: depth_cost(depth_ansatz(basis, settings, D), costing).fidelity
+            for D in range(1, settings.max_layers + 1)}
+
+
+def abort_thresholds(basis: PhysicalBasis, settings: VariationalSettings,
+                     costing: Costing) -> dict[int, float | None]:
     """Infidelity above which the fit of depth D can stop: it then neither meets the tolerance
     nor can maximise the predicted total fidelity F_alg(D) F_noise(D).
 
@@ -146,32 +221,50 @@ def abort_thresholds(basis: PhysicalBasis, settings: VariationalSettings, profil
     F_alg(D) > (1 − tol) F_noise(C) / F_noise(D) ≥ (1 − tol) F_noise(max_layers) / F_noise(D)
     (F_noise falls with depth), so D stops once 1 − F(t) exceeds
     max(tol, 1 − (1 − tol) F_noise(max_layers) / F_noise(D)). Only with the fidelity criterion.
+
+    The fast path of :func:`size_depth` also uses the best total B found so far among the
+    shallower depths: D can only win if F_alg(D) > B / F_noise(D), and F_alg is the minimum of
+    F(t) over the window, so D stops once 1 − F(t) > max(tol, 1 − B / F_noise(D)) as well. Neither
+    rule changes the chosen depth (an aborted depth has 1 − F > tol) or the best depth under
+    noise (an aborted depth's total is below B); aborted rows report their window up to
+    ``reached_time``.
     """
     if settings.criterion != "fidelity":
         return {D: None for D in range(1, settings.max_layers + 1)}
-    noise = {D: ansatz_cost(make_ansatz(basis, settings.family, D, settings.angles, settings.native_spec()),
-                            profile, term_costs).fidelity for D in range(1, settings.max_layers + 1)}
+    noise = noise_fidelities(basis, settings, costing)
     deepest = noise[settings.max_layers]
     tol = settings.tolerance
     return {D: max(tol, 1.0 - (1.0 - tol) * deepest / noise[D]) if noise[D] > 0 else tol for D in noise}
 
 
 def size_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSettings,
-               profile: HardwareProfile, term_costs: dict[str, TermCost],
-               log: Callable[[str], None] | None = None, baselines: bool = True) -> SizingResult:
+               costing: Costing, log: Callable[[str], None] | None = None,
+               baselines: bool = True, fast: bool = True, warm_starts: bool | None = None) -> SizingResult:
     """Scan D = 1 … max_layers until the tolerance is met (plus one deeper for the budget).
 
-    ``baselines=False`` skips the Trotter baseline and the shot counts (used when a second
-    layer family is sized for comparison).
+    ``baselines=False`` skips the Trotter baseline and the shot counts (used when further
+    layer families are sized for comparison). ``fast``: the fast step fits; with
+    ``warm_starts`` (default :data:`WARM_STARTS`) depth D + 1 is also offered depth D's angles
+    plus an identity layer.
     """
+    warm_starts = WARM_STARTS if warm_starts is None else warm_starts
     from lgt.variational.shots import shots_needed
 
     rows: list[DepthRow] = []
     trajectories: dict[int, VariationalTrajectory] = {}
     chosen = None
-    thresholds = abort_thresholds(basis, settings, profile, term_costs)
+    thresholds = abort_thresholds(basis, settings, costing)
+    noise = noise_fidelities(basis, settings, costing)
+    shallower = None
+    best_total = 0.0
     for layers in range(1, settings.max_layers + 1):
-        row, traj = evaluate_depth(basis, psi0, settings, layers, profile, term_costs, abort=thresholds[layers])
+        abort = thresholds[layers]
+        if fast and abort is not None and noise[layers] > 0:
+            abort = max(settings.tolerance, min(abort, 1.0 - best_total / noise[layers]))
+        row, traj, ansatz = evaluate_depth(basis, psi0, settings, layers, costing, abort=abort,
+                                           fast=fast, shallower=shallower if fast and warm_starts else None)
+        shallower = (ansatz, traj)
+        best_total = max(best_total, row.total_fidelity)
         rows.append(row)
         trajectories[layers] = traj
         if log:
@@ -184,7 +277,27 @@ def size_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSett
     best = max(rows, key=lambda r: r.total_fidelity).layers if rows else None
     if not baselines:
         return SizingResult(rows, chosen, best, [], {}, trajectories)
-    trotter = trotter_rows(basis, psi0, settings, term_costs)
+    trotter = trotter_rows(basis, psi0, settings, costing.terms())
     reference = trajectories[chosen if chosen is not None else rows[-1].layers]
     shots = shots_needed(basis, reference.exact_states, settings.shots_error)
     return SizingResult(rows, chosen, best, trotter, shots, trajectories)
+
+
+def rows_table(row_type: type, rows: list, description: str) -> Table:
+    """A :class:`~lgt.results.Table` with one column per field of the dataclass ``row_type``
+    (``None`` stored as :data:`NONE`)."""
+    names = [f.name for f in fields(row_type)]
+    columns = {n: np.array([NONE if getattr(r, n) is None else getattr(r, n) for r in rows]) for n in names}
+    return Table(columns, {n: u for n, u in COLUMN_UNITS.items() if n in columns}, description)
+
+
+def trajectory_table(trajectories: dict[int, VariationalTrajectory], family: str) -> Table:
+    """Fit diagnostics of every depth in long form: one row per (layers, stored time)."""
+    trajs = [(D, t) for D, t in sorted(trajectories.items())]
+    cat = (lambda get: np.concatenate([get(D, t) for D, t in trajs]) if trajs else np.zeros(0))
+    columns = {"layers": cat(lambda D, t: np.full(t.times.size, D)), "time": cat(lambda D, t: t.times),
+               "fidelity": cat(lambda D, t: t.fidelity), "step_infidelity": cat(lambda D, t: t.step_infidelity),
+               "leakage": cat(lambda D, t: t.leakage), "optimizer_iterations": cat(lambda D, t: t.iterations),
+               "step_seconds": cat(lambda D, t: t.wall_time)}
+    return Table(columns, {n: u for n, u in COLUMN_UNITS.items() if n in columns},
+                 f"{family} layers: accumulated fidelity with the exact state, step fits and leakage per depth and time")

@@ -15,13 +15,21 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.sparse.linalg import expm_multiply
 
-from circuits.fitting import fit_to_target
+from scipy.optimize import minimize
+
+from circuits.blas_threads import single_threaded_blas
+from circuits.fitting import FitResult, fit_to_target
 from lgt.hamiltonian import build_hamiltonian
 from lgt.variational.ansatz import ModelAnsatz
 
 MODES = ("dynamics", "compression")
 #: Standard deviation (radians) of the random angles added on a restart.
 JITTER = 0.05
+#: Fast path: a step's fit stops once its infidelity fell by less than STALL_GAIN (relative)
+#: over the last STALL_WINDOW iterations (it has settled on the depth's floor; measured on
+#: 6-site hardware layers: see docs/variational.md).
+STALL_WINDOW = 50
+STALL_GAIN = 0.01
 
 
 @dataclass
@@ -72,7 +80,8 @@ def exact_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: 
 def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: int,
                    step_tolerance: float, maxiter: int = 300, mode: str = "dynamics",
                    restarts: int = 1, seed: int = 0, progress=None,
-                   abort_infidelity: float | None = None) -> VariationalTrajectory:
+                   abort_infidelity: float | None = None, fast: bool = True,
+                   warm: np.ndarray | None = None) -> VariationalTrajectory:
     """Fit the ansatz step by step from the physical initial state ``psi0``.
 
     Parameters
@@ -87,6 +96,11 @@ def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: in
     progress : optional callable ``progress(k)`` after each step.
     abort_infidelity : stop early once 1 − F(t_k) against the exact state exceeds this (the
         window can no longer meet that tolerance); the trajectory then ends at that step.
+    fast : the fast path: stall stop and restarts only when stuck (see :data:`STALL_WINDOW`,
+        :func:`_fit_step_fast`); ``False`` is the plain path (every step to its threshold or
+        ``maxiter``, every missed step restarted).
+    warm : optional (T, P) start angles per step (e.g. a shallower depth's fit padded with
+        identity layers); used at a step when it starts closer than the extrapolation.
     """
     if mode not in MODES:
         raise ValueError(f"mode must be one of {MODES}, got {mode!r}")
@@ -112,21 +126,14 @@ def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: in
         t0 = time.perf_counter()
         target = expm_multiply(A, current) if mode == "dynamics" else ansatz.embed(exact[k + 1])
         start = params[k] + (params[k] - params[k - 1] if k > 0 else 0.0)
-        guess = _better_start(circuit, v0, target, [start, params[k]])
-        res = fit_to_target(circuit, v0, target, guess, tol=1e-14, maxiter=maxiter,
-                            stop_infidelity=step_tolerance)
-        for _ in range(restarts):
-            if 1.0 - res.fidelity <= step_tolerance:
-                break
-            jitter = params[k] + rng.normal(scale=JITTER, size=P)
-            retry = fit_to_target(circuit, v0, target, jitter, tol=1e-14, maxiter=maxiter,
-                                  stop_infidelity=step_tolerance)
-            retry.iterations += res.iterations
-            retry.nfev += res.nfev
-            if retry.fidelity > res.fidelity:
-                res = retry
-            else:
-                res.iterations, res.nfev = retry.iterations, retry.nfev
+        candidates = [start, params[k]]
+        if warm is not None and k + 1 < len(warm):
+            candidates.append(warm[k + 1])
+        guess = _better_start(circuit, v0, target, candidates)
+        if fast:
+            res = _fit_step_fast(circuit, v0, target, guess, step_tolerance, maxiter, restarts, rng)
+        else:
+            res = _fit_step_plain(circuit, v0, target, guess, params[k], step_tolerance, maxiter, restarts, rng)
         params[k + 1] = res.params
         current = circuit.apply(res.params, v0)
         phys, leak = ansatz.to_physical(current)
@@ -143,6 +150,77 @@ def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: in
             break
     return VariationalTrajectory(np.arange(T) * dt, params[:T], step_inf[:T], fidelity[:T], leakage[:T],
                                  iters[:T], nfev[:T], wall[:T], states[:T], exact[:T])
+
+
+def _fit_step_plain(circuit, v0, target, guess, previous, step_tolerance, maxiter, restarts, rng) -> FitResult:
+    """The plain step fit: L-BFGS to the threshold or ``maxiter``, then ``restarts`` fits from the
+    previous angles plus random angles while the threshold is missed; the best fit is kept."""
+    res = fit_to_target(circuit, v0, target, guess, tol=1e-14, maxiter=maxiter, stop_infidelity=step_tolerance)
+    for _ in range(restarts):
+        if 1.0 - res.fidelity <= step_tolerance:
+            break
+        jitter = previous + rng.normal(scale=JITTER, size=previous.size)
+        res = _better_fit(res, fit_to_target(circuit, v0, target, jitter, tol=1e-14, maxiter=maxiter,
+                                             stop_infidelity=step_tolerance))
+    return res
+
+
+def _fit_step_fast(circuit, v0, target, guess, step_tolerance, maxiter, restarts, rng) -> FitResult:
+    """The fast step fit: L-BFGS with the stall stop; restarts from jittered angles only while
+    the optimiser converged to a stationary point above the threshold (a saddle such as the
+    identity point of native layers), never after a stall or ``maxiter`` (a floor of the depth)."""
+    res = _lbfgs_stall(circuit, v0, target, guess, step_tolerance, maxiter)
+    for _ in range(restarts):
+        if 1.0 - res.fidelity <= step_tolerance or not res.success:
+            break
+        jitter = res.params + rng.normal(scale=JITTER, size=guess.size)
+        res = _better_fit(res, _lbfgs_stall(circuit, v0, target, jitter, step_tolerance, maxiter))
+    return res
+
+
+def _better_fit(res: FitResult, retry: FitResult) -> FitResult:
+    """The better of two fits of one step, counting the work of both."""
+    retry.iterations += res.iterations
+    retry.nfev += res.nfev
+    if retry.fidelity > res.fidelity:
+        return retry
+    res.iterations, res.nfev = retry.iterations, retry.nfev
+    return res
+
+
+def _lbfgs_stall(circuit, v0, target, start, stop_infidelity, maxiter) -> FitResult:
+    """L-BFGS-B fit of |<target|C(θ)|v0>|² from ``start`` that stops at ``stop_infidelity``, at
+    ``maxiter`` or on a stall (see :data:`STALL_WINDOW`); ``success`` is True only when the
+    optimiser itself converged (a stationary point)."""
+    norm = float(np.vdot(target, target).real * np.vdot(v0, v0).real)
+    t0 = time.perf_counter()
+
+    def loss(p: np.ndarray) -> tuple[float, np.ndarray]:
+        fid, grad = circuit.fidelity_and_gradient(p, v0, target)
+        return 1.0 - fid / norm, -grad / norm
+
+    first, _ = loss(start)
+    if first <= stop_infidelity or start.size == 0:
+        return FitResult(start.copy(), 1.0 - first, 0, 1, time.perf_counter() - t0, False, "start")
+    history = [first]
+    stopped: list[str] = []
+
+    def watch(intermediate_result) -> None:
+        value = intermediate_result.fun
+        history.append(value)
+        if value <= stop_infidelity:
+            stopped.append("threshold")
+        elif len(history) > STALL_WINDOW and history[-1 - STALL_WINDOW] - value < STALL_GAIN * value:
+            stopped.append("stall")
+        if stopped:
+            raise StopIteration
+
+    with single_threaded_blas():
+        out = minimize(loss, start, jac=True, method="L-BFGS-B", callback=watch,
+                       options={"maxiter": maxiter, "ftol": 1e-14, "gtol": 1e-14})
+    converged = bool(out.success) and not stopped and out.nit < maxiter
+    return FitResult(np.asarray(out.x), float(1.0 - out.fun), int(out.nit), int(out.nfev),
+                     time.perf_counter() - t0, converged, stopped[0] if stopped else str(out.message))
 
 
 def _better_start(circuit, v0: np.ndarray, target: np.ndarray, candidates: list[np.ndarray]) -> np.ndarray:

@@ -10,6 +10,7 @@ distinct hopping exponential (see :mod:`lgt.variational.native_cost`).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
 from scipy.sparse.linalg import expm_multiply
@@ -59,13 +60,15 @@ class TrotterResult:
 
 
 def least_trotter_steps(basis: PhysicalBasis, psi0: np.ndarray, t_final: float, tolerance: float,
-                        order: int, max_steps: int = 512) -> TrotterResult:
-    """Fewest steps n whose trajectory keeps 1 − F ≤ ``tolerance`` at every step time in [0, T]."""
+                        order: int, max_steps: int = 512,
+                        measure: Callable[[int], float] | None = None) -> TrotterResult:
+    """Fewest steps n whose trajectory keeps 1 − F ≤ ``tolerance`` at every step time in [0, T]
+    (or, with ``measure``, keeps ``measure(n)`` ≤ ``tolerance``: another error of n steps)."""
     groups = trotter_groups(basis)
     history: list[tuple[int, float]] = []
 
     def error(n: int) -> float:
-        e = trotter_max_infidelity(basis, psi0, t_final, n, order, groups)[0]
+        e = measure(n) if measure is not None else trotter_max_infidelity(basis, psi0, t_final, n, order, groups)[0]
         history.append((n, e))
         return e
 

@@ -14,21 +14,24 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from circuits.export import to_dict
 from lgt.basis import PhysicalBasis
 from lgt.config import check_keys, table
+from lgt.model import ModelParams
 from lgt.resolved import VariationalConfig
-from lgt.results import RunResult, TimeSeries
+from lgt.results import RunResult, Table, TimeSeries
 from lgt.states import prepare_initial_state
-from lgt.variational.ansatz import ModelAnsatz, make_ansatz, symmetric_ansatz
+from lgt.variational.ansatz import LayerOptions
+from lgt.variational.budget import Costing
 from lgt.variational.comparison import compare_to_exact, make_observer
+from lgt.variational.families import available_families, get_family
 from lgt.variational.native_cost import model_term_costs
-from lgt.variational.settings import resolve_variational
+from lgt.variational.settings import VariationalSettings, resolve_variational
+from lgt.variational.sizing import (CRITERION_OBSERVABLES, NONE, DepthRow, SizingResult, TrotterRow, meets,
+                                    rows_table, trajectory_table)
 from lgt.variational.stepper import VariationalTrajectory, fit_trajectory
 
-#: Largest register (d^K) on which hardware layers are fitted.
-MAX_HARDWARE_REGISTER = 2_000_000
-
+#: Forms of exported circuit files: native gates only (default), or the circuit's own gates.
+EXPORT_FORMS = ("native", "generator")
 
 def validate_variational_config(config: Mapping[str, Any]) -> VariationalConfig:
     """Validate [model], [initial], [variational] (and [evolution] t_final) and the hardware
@@ -50,12 +53,12 @@ def validate_variational_config(config: Mapping[str, Any]) -> VariationalConfig:
     params = checked_model(config)
     initial = checked_initial(config, params)
     settings = resolve_variational(config, params.levels)
-    if settings.family == "hardware" and params.levels ** params.n_links > MAX_HARDWARE_REGISTER:
-        raise ConfigError("variational.family", "hardware",
-                          f"hardware layers run on the full register, {params.levels}^{params.n_links} "
-                          "amplitudes is too large; use family = \"symmetric\"")
+    family = get_family(settings.family)
+    reason = family.unavailable(params)
+    if reason is not None:
+        raise ConfigError("variational.family", settings.family, reason)
     states = 2 * (settings.n_steps + 1)  # fitted and exact state of every step are kept
-    register = params.levels ** params.n_links if settings.family == "hardware" else 0
+    register = params.levels ** params.n_links if family.fit_space == "register" else 0
     guard_memory(params, "fit/size", stored_vectors=8 + states, extra_bytes=16 * register * (states + 8))
     profile = load_checked_profile(settings)
     return VariationalConfig(params, initial, settings, profile)
@@ -67,6 +70,13 @@ def _setup(resolved: Mapping[str, Any]):
     basis = PhysicalBasis(params)
     psi0 = prepare_initial_state(basis, resolved["initial"])
     return params, settings, basis, psi0, resolved.profile
+
+
+def _costing(params: ModelParams, settings: VariationalSettings, profile) -> Costing:
+    """Prices of the run's circuits; the term exponentials are compiled (or read from the
+    cache) on first use."""
+    return Costing(profile, lambda: model_term_costs(params, settings.native_spec(), profile, settings.compile_fidelity,
+                                                     compile=settings.compile, seed=settings.seed))
 
 
 def _progress(total: int, enabled: bool, desc: str):
@@ -99,40 +109,60 @@ def trajectory_series(traj: VariationalTrajectory, basis: PhysicalBasis) -> dict
 
 def run_fit(resolved: Mapping[str, Any], progress: bool = False) -> RunResult:
     """Fit the configured depth over [0, T]; compare with the exact trajectory."""
+    from lgt.variational.sizing import trotter_rows
+
     resolved = validate_variational_config(resolved)
     params, settings, basis, psi0, profile = _setup(resolved)
     t0 = time.perf_counter()
-    ansatz = make_ansatz(basis, settings.family, settings.layers, settings.angles, settings.native_spec())
+    family = get_family(settings.family)
+    ansatz = family.build(basis, settings.layers, LayerOptions.from_settings(settings))
     update, close = _progress(settings.n_steps, progress, "fit")
     try:
         traj = fit_trajectory(ansatz, psi0, settings.dt, settings.n_steps, settings.step_tolerance,
-                              settings.maxiter, settings.mode, settings.restarts, settings.seed, update)
+                              settings.maxiter, settings.mode, settings.restarts, settings.seed, update,
+                              fast=settings.fast_fit)
     finally:
         close()
     t1 = time.perf_counter()
     series = trajectory_series(traj, basis)
-    costs = model_term_costs(params, settings.native_spec(), profile, settings.compile_fidelity,
-                             compile=settings.compile, seed=settings.seed)
-    from dataclasses import asdict
-
-    from lgt.variational.budget import ansatz_cost
-    from lgt.variational.sizing import trotter_rows
-
-    cost = ansatz_cost(ansatz, profile, costs)
-    trotter = [asdict(r) for r in trotter_rows(basis, psi0, settings, costs)]
+    costing = _costing(params, settings, profile)
+    cost = family.native_cost(ansatz, costing)
+    trotter = trotter_rows(basis, psi0, settings, costing.terms())
+    obs_err = max(float(np.max(series[f"error_{name}"].values)) for name in CRITERION_OBSERVABLES)
     attributes = {
         "family": settings.family, "layers": settings.layers, "parameters": ansatz.n_params,
         "space": ansatz.space, "dimension": basis.dimension,
         "max_infidelity": traj.max_infidelity, "final_fidelity": float(traj.fidelity[-1]),
         "sum_step_infidelity": float(traj.step_infidelity.sum()),
-        "max_leakage": float(traj.leakage.max()),
+        "max_leakage": float(traj.leakage.max()), "max_observable_error": obs_err,
         "two_qudit_gates": cost.two_qudit, "single_qudit_gates": cost.single_qudit,
         "duration_us": cost.duration_us, "noise_fidelity": cost.fidelity,
         "hardware_profile": profile.name,
-        "trotter_json": json.dumps(trotter),
+        **_tolerance_attributes(settings, meets(settings, traj.max_infidelity, obs_err)),
     }
+    tables = {"trotter": rows_table(TrotterRow, trotter, TROTTER_DESCRIPTION)}
     return RunResult("fit", dict(resolved), series, arrays={"parameters": traj.params},
-                     attributes=attributes, timings={"fit": t1 - t0, "compare": time.perf_counter() - t1})
+                     attributes=attributes, timings={"fit": t1 - t0, "compare": time.perf_counter() - t1},
+                     tables=tables)
+
+
+TROTTER_DESCRIPTION = ("least Trotter steps meeting the tolerance per order (steps = -1: not reached "
+                       "within trotter_max_steps), with the native cost of the whole circuit to T")
+
+
+def _tolerance_attributes(settings: VariationalSettings, met: bool) -> dict[str, Any]:
+    """``meets_tolerance`` and the numbers it was decided with (see :func:`~lgt.variational.sizing.meets`)."""
+    return {"meets_tolerance": bool(met), "criterion": settings.criterion, "tolerance": settings.tolerance,
+            "observable_tolerance": settings.observable_tolerance}
+
+
+def trotter_summary(result: RunResult) -> list[dict[str, Any]]:
+    """The Trotter rows of a fit or size result as plain dicts (``steps`` None when not reached)."""
+    rows = result.tables["trotter"].rows()
+    for row in rows:
+        if row["steps"] == NONE:
+            row["steps"] = None
+    return rows
 
 
 def export_circuits(resolved: Mapping[str, Any], parameters: np.ndarray, outdir: str | Path,
@@ -142,30 +172,22 @@ def export_circuits(resolved: Mapping[str, Any], parameters: np.ndarray, outdir:
     ``form="native"``: only the hardware profile's native gates (:mod:`circuits.native_export`),
     angles resolved, each gate with ``duration_us``; the document adds ``compile_fidelity``,
     ``hardware_profile`` (name, path, sha256) and ``cost``. ``form="generator"``: the circuit's
-    own gates (generator exponentials of the model's terms; for simulation). Symmetric circuits
-    are written in register form. Every document adds ``form``, ``time``, ``initial_state``
-    (register product levels, or the non-zero register amplitudes) and ``model``.
+    own gates (generator exponentials of the model's terms; for simulation). Every family writes
+    its register form (:meth:`~lgt.variational.families.base.LayerFamily.export`). Every document
+    adds ``form``, ``time``, ``initial_state`` (register product levels, or the non-zero register
+    amplitudes) and ``model``.
     """
-    from circuits.native_export import native_circuit, native_document
-
-    if form not in ("native", "generator"):
-        raise ValueError(f"form must be 'native' or 'generator', got {form!r}")
+    if form not in EXPORT_FORMS:
+        raise ValueError(f"form must be one of {EXPORT_FORMS}, got {form!r}")
     resolved = validate_variational_config(resolved)
     params, settings, basis, psi0, profile = _setup(resolved)
-    if settings.family == "symmetric":
-        ansatz: ModelAnsatz = symmetric_ansatz(basis, settings.layers, settings.angles, space="register")
-    else:
-        ansatz = make_ansatz(basis, "hardware", settings.layers, spec=settings.native_spec())
+    docs = get_family(settings.family).export(basis, settings.layers, LayerOptions.from_settings(settings),
+                                              np.atleast_2d(parameters), profile, form)
     outdir = Path(outdir)
     outdir.mkdir(parents=True, exist_ok=True)
     initial = initial_state_document(basis, psi0)
-    gate_set, blocks = profile.gate_set(params.levels), {}
     paths = []
-    for k, row in enumerate(np.atleast_2d(parameters)):
-        if form == "native":
-            doc = native_document(native_circuit(ansatz.circuit, row, gate_set, blocks), profile)
-        else:
-            doc = to_dict(ansatz.circuit, row)
+    for k, doc in enumerate(docs):
         doc["form"] = form
         doc["time"] = k * settings.dt
         doc["initial_state"] = initial
@@ -197,61 +219,106 @@ def initial_state_from_document(doc: Mapping[str, Any], n_qudits: int, d: int) -
 
 
 def run_size(resolved: Mapping[str, Any], log=None) -> RunResult:
-    """Depth sizing with budget, Trotter baseline and shots (see :mod:`lgt.variational.sizing`)."""
+    """Depth sizing with budget, Trotter baseline and shots (see :mod:`lgt.variational.sizing`).
+
+    With ``compare_families`` every other registered family that can run this model is sized
+    too (no baselines). Tables: ``depth_<family>`` and ``trajectories_<family>`` per family,
+    ``families``, ``trotter``, ``shots``, ``term_costs``.
+    """
+    from dataclasses import replace
+
     from lgt.variational.sizing import size_depth
 
     resolved = validate_variational_config(resolved)
     params, settings, basis, psi0, profile = _setup(resolved)
     t0 = time.perf_counter()
-    costs = model_term_costs(params, settings.native_spec(), profile, settings.compile_fidelity,
-                             compile=settings.compile, seed=settings.seed)
+    costing = _costing(params, settings, profile)
+    costs = costing.terms()
     t1 = time.perf_counter()
-    result = size_depth(basis, psi0, settings, profile, costs, log)
-    other = None
-    other_family = "hardware" if settings.family == "symmetric" else "symmetric"
-    if settings.compare_families and (other_family == "symmetric" or basis.register_dimension <= MAX_HARDWARE_REGISTER):
-        from dataclasses import replace
-
-        other = size_depth(basis, psi0, replace(settings, family=other_family), profile, costs, log, baselines=False)
+    results = {settings.family: size_depth(basis, psi0, settings, costing, log, fast=settings.fast_fit)}
+    if settings.compare_families:
+        for name in available_families(params):
+            if name not in results:
+                results[name] = size_depth(basis, psi0, replace(settings, family=name), costing, log,
+                                           baselines=False, fast=settings.fast_fit)
     t2 = time.perf_counter()
-    table = result.table()
-    arrays = {f"table_{key}": np.array([row[key] for row in table], dtype=float) for key in table[0]}
+    result = results[settings.family]
+    arrays = {}
     if result.chosen is not None:  # the chosen depth's fitted angles, ready for export_circuits
         arrays["parameters"] = result.trajectories[result.chosen].params
-    series = {}
-    for layers, traj in result.trajectories.items():
-        series[f"fidelity_D{layers}"] = TimeSeries(traj.times, traj.fidelity)
-        series[f"leakage_D{layers}"] = TimeSeries(traj.times, traj.leakage)
     attributes = {
-        "layers": -1 if result.chosen is None else result.chosen,
-        "best_layers_under_noise": -1 if result.best_under_noise is None else result.best_under_noise,
+        "layers": NONE if result.chosen is None else result.chosen,
+        "best_layers_under_noise": NONE if result.best_under_noise is None else result.best_under_noise,
         "family": settings.family, "hardware_profile": profile.name,
-        "summary_json": json.dumps(size_summary(result, costs, settings.family, other_family, other)),
+        **_tolerance_attributes(settings, result.chosen is not None),
     }
-    return RunResult("size", dict(resolved), series, arrays, attributes,
-                     timings={"compile": t1 - t0, "size": t2 - t1})
+    return RunResult("size", dict(resolved), {}, arrays, attributes,
+                     timings={"compile": t1 - t0, "size": t2 - t1}, tables=size_tables(results, costs))
 
 
-def size_summary(result, costs, family: str, other_family: str, other=None) -> dict[str, Any]:
-    """JSON-ready summary: chosen depth, table, Trotter baseline, budget, shots, term costs,
-    and (``other``) the comparison family's table."""
-    from dataclasses import asdict
+def size_tables(results: dict[str, SizingResult], costs) -> dict[str, Table]:
+    """Result tables of a sizing run; the first entry of ``results`` is the configured family."""
+    primary = next(iter(results.values()))
+    tables: dict[str, Table] = {}
+    for name, res in results.items():
+        tables[f"depth_{name}"] = rows_table(DepthRow, res.rows, f"{name} layers: one row per depth D fitted "
+                                             "(fidelities over the window reached, native cost of one circuit)")
+        tables[f"trajectories_{name}"] = trajectory_table(res.trajectories, name)
+    tables["families"] = Table(
+        {"family": np.array(list(results)),
+         "layers": np.array([NONE if r.chosen is None else r.chosen for r in results.values()]),
+         "best_layers_under_noise": np.array([NONE if r.best_under_noise is None else r.best_under_noise
+                                              for r in results.values()])},
+        description="per family: least depth meeting the tolerance and depth of highest predicted total "
+                    "fidelity (-1: none up to max_layers); the first row is the configured family")
+    tables["trotter"] = rows_table(TrotterRow, primary.trotter, TROTTER_DESCRIPTION)
+    tables["shots"] = Table({"observable": np.array(list(primary.shots), dtype=str),
+                             "shots": np.array(list(primary.shots.values()), dtype=np.int64)},
+                            description="shots for the configured standard error, largest over the window")
+    keys = sorted({k for c in costs.values() for k in c.counts})
+    columns = {"term": np.array(list(costs), dtype=str)}
+    columns.update({f"count_{k}": np.array([c.counts.get(k, 0) for c in costs.values()], dtype=np.int64)
+                    for k in keys})
+    columns.update(fidelity=np.array([c.fidelity for c in costs.values()]),
+                   duration_us=np.array([c.duration_us for c in costs.values()]),
+                   compiled_layers=np.array([c.layers for c in costs.values()], dtype=np.int64),
+                   compile_fidelity=np.array([c.compile_fidelity for c in costs.values()]))
+    tables["term_costs"] = Table(columns, {"duration_us": "us"},
+                                 "native cost of each term exponential (count_<gate kind>: native gates)")
+    return tables
 
-    families = {family: {"layers": result.chosen, "table": result.table()}}
-    if other is not None:
-        families[other_family] = {"layers": other.chosen, "table": other.table(),
-                                  "best_layers_under_noise": other.best_under_noise}
+
+def size_summary_dict(result: RunResult) -> dict[str, Any]:
+    """JSON-ready summary of a ``size`` result (what ``fluxline size --json`` prints): chosen depth,
+    table, Trotter baseline, budget, shots, term costs, every family's table, ``meets_tolerance``."""
+    a, t = result.attributes, result.tables
+    none = (lambda v: None if v == NONE else v)
+    families = {}
+    for row in t["families"].rows():
+        entry = {"layers": none(row["layers"]), "table": t[f"depth_{row['family']}"].rows()}
+        if row["family"] != a["family"]:
+            entry["best_layers_under_noise"] = none(row["best_layers_under_noise"])
+        families[row["family"]] = entry
+    table = families[a["family"]]["table"]
+    count_cols = [c for c in t["term_costs"].columns if c.startswith("count_")]
+    term_costs = {}
+    for row in t["term_costs"].rows():
+        term_costs[row["term"]] = {"counts": {c[len("count_"):]: row[c] for c in count_cols if row[c]},
+                                   "fidelity": row["fidelity"], "duration_us": row["duration_us"],
+                                   "compiled_layers": row["compiled_layers"],
+                                   "compile_fidelity": row["compile_fidelity"]}
     return {
-        "family": family,
+        "family": a["family"],
         "families": families,
-        "layers": result.chosen,
-        "table": result.table(),
-        "trotter": [asdict(t) for t in result.trotter],
-        "budget": {"best_layers_under_noise": result.best_under_noise,
-                   "rows": [{"layers": r.layers, "noise_fidelity": r.noise_fidelity,
-                             "total_fidelity": r.total_fidelity} for r in result.rows]},
-        "shots": result.shots,
-        "term_costs": {k: {"counts": v.counts, "fidelity": v.fidelity, "duration_us": v.duration_us,
-                           "compiled_layers": v.layers, "compile_fidelity": v.compile_fidelity}
-                       for k, v in costs.items()},
+        "layers": none(a["layers"]),
+        "table": table,
+        "trotter": trotter_summary(result),
+        "budget": {"best_layers_under_noise": none(a["best_layers_under_noise"]),
+                   "rows": [{"layers": r["layers"], "noise_fidelity": r["noise_fidelity"],
+                             "total_fidelity": r["total_fidelity"]} for r in table]},
+        "shots": {r["observable"]: r["shots"] for r in t["shots"].rows()},
+        "term_costs": term_costs,
+        "meets_tolerance": bool(a["meets_tolerance"]),
+        "criterion": a["criterion"], "tolerance": a["tolerance"],
+        "observable_tolerance": a["observable_tolerance"],
     }
