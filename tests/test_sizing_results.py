@@ -113,9 +113,10 @@ def test_a_depth_stops_once_past_its_threshold(basis):
 
 
 def test_compiled_term_costs_replace_generic_blocks(basis, tmp_path, monkeypatch):
-    # compile = true prices each hopping exponential by its compiled native brickwork (shipped
-    # for d = 3; counts in docs/variational.md: 4, 18 and 6 two-qudit phases for the left,
-    # interior odd and right blocks), compile = false as one generic block per hopping term
+    # compile = true prices each hopping exponential by its exact native block (shipped for d = 3;
+    # counts in docs/circuits.md with the default light-shift profile: 2, 16 and 2 two-qudit gates
+    # for the left, interior and right blocks; interior mass terms are linear in the fields and
+    # need none), compile = false as one generic block per hopping term
     monkeypatch.setenv("FLUXLINE_CACHE_DIR", str(tmp_path))
     settings = settings_of(compile=True)
     if uncompiled_hoppings(basis.params, settings.native_spec(), settings.compile_fidelity):
@@ -126,7 +127,7 @@ def test_compiled_term_costs_replace_generic_blocks(basis, tmp_path, monkeypatch
     ansatz = depth_ansatz(basis, settings, 2)
     c, g = depth_cost(ansatz, compiled), depth_cost(ansatz, generic)
     assert c.other == 0 and g.other == 2 * 3  # three hopping terms per layer
-    assert c.two_qudit == 2 * (4 + 18 + 6 + 2)  # + two interior mass terms (two-qudit phases)
+    assert c.two_qudit == 2 * (2 + 16 + 2)
     assert not list(tmp_path.iterdir())  # nothing compiled, nothing written
 
 
