@@ -40,7 +40,10 @@ def test_notebook_runs(name, tmp_path, monkeypatch):
     started = time.perf_counter()
     client.execute()  # raises CellExecutionError (with the cell's traceback) on any error
     seconds = time.perf_counter() - started
-    errors = [out for cell in nb.cells if cell.cell_type == "code" for out in cell.get("outputs", [])
-              if out.get("output_type") == "error"]
-    assert not errors
+    # execute() raises on any failing cell; what is left to check is that the notebook checks
+    # something (its own asserts against exact results) and that it ran to its last cell
+    code = [cell for cell in nb.cells if cell.cell_type == "code"]
+    assert sum(cell.source.count("assert ") for cell in code) >= 3, f"{name} asserts nothing"
+    last = "".join(out.get("text", "") for out in code[-1].get("outputs", []) if out.get("output_type") == "stream")
+    assert "notebook ran in" in last, f"{name} did not reach its last cell"
     print(f"{name}: executed in {seconds:.1f} s")
