@@ -27,6 +27,7 @@ from scipy.linalg.blas import dgemm
 from scipy.special import jv
 
 from lgt.kernels import SparseKernel
+from lgt.spectrum import lanczos_tridiagonal
 
 #: Chebyshev vectors gathered (ring buffer) before they are folded into the outputs, and the
 #: most memory that buffer may take (large states use fewer vectors).
@@ -66,23 +67,8 @@ def lanczos_interval(H: sp.spmatrix, steps: int = LANCZOS_STEPS, margin: float =
         pad = 1e-12 * max(1.0, float(np.abs(w).max()))
         return float(w[0] - pad), float(w[-1] + pad)
     apply = apply or (lambda x: H @ x)
-    v = np.random.default_rng(seed).standard_normal(n)
-    v /= np.linalg.norm(v)
-    prev = np.zeros(n)
-    alpha, beta = [], []
-    b = 0.0
-    for _ in range(steps):
-        w = apply(v)
-        w -= b * prev
-        a = float(v @ w)
-        w -= a * v
-        b = float(np.linalg.norm(w))
-        alpha.append(a)
-        beta.append(b)
-        if b < 1e-12:
-            break
-        prev, v = v, w / b
-    theta, s = eigh_tridiagonal(np.array(alpha), np.array(beta[:-1]))
+    alpha, beta = lanczos_tridiagonal(apply, np.random.default_rng(seed).standard_normal(n), steps)
+    theta, s = eigh_tridiagonal(alpha, beta[:-1])
     res_lo, res_hi = beta[-1] * abs(s[-1, 0]), beta[-1] * abs(s[-1, -1])
     pad = margin * 0.5 * (theta[-1] - theta[0])
     return max(lo_g, float(theta[0] - res_lo - pad)), min(hi_g, float(theta[-1] + res_hi + pad))
