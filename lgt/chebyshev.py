@@ -32,7 +32,7 @@ from lgt.spectrum import lanczos_tridiagonal
 #: Chebyshev vectors gathered (ring buffer) before they are folded into the outputs, and the
 #: most memory that buffer may take (large states use fewer vectors).
 BUFFER = 16
-BUFFER_BYTES = 64 * 2 ** 20
+BUFFER_BYTES = 32 * 2 ** 20
 #: Coefficients below this (relative to the sum's norm) end the series.
 DEFAULT_TOL = 1e-14
 #: Lanczos steps and relative safety margin (of the half-width) of :func:`lanczos_interval`.
@@ -72,6 +72,40 @@ def lanczos_interval(H: sp.spmatrix, steps: int = LANCZOS_STEPS, margin: float =
     res_lo, res_hi = beta[-1] * abs(s[-1, 0]), beta[-1] * abs(s[-1, -1])
     pad = margin * 0.5 * (theta[-1] - theta[0])
     return max(lo_g, float(theta[0] - res_lo - pad)), min(hi_g, float(theta[-1] + res_hi + pad))
+
+
+def bessel_table(n: int, x: np.ndarray) -> np.ndarray:
+    """J_k(x_j) for k < n, shape (n, len(x)), by Miller's downward recurrence
+    J_{k−1} = (2k/x) J_k − J_{k+1} normalised with J_0 + 2 Σ J_{2k} = 1 (Abramowitz & Stegun
+    9.1.27, 9.1.46); stable for all k, with rescaling against overflow. x ≥ 0."""
+    x = np.asarray(x, dtype=float)
+    out = np.zeros((n, x.size))
+    pos = x > 0
+    out[0, ~pos] = 1.0
+    if not np.any(pos):
+        return out
+    xp = x[pos]
+    M = int(n + 20 + 2 * np.sqrt(40 * max(n, float(xp.max()))))
+    M += M % 2  # even start: the normalisation sum runs over even orders
+    table = np.zeros((n, xp.size))
+    nxt = np.zeros(xp.size)
+    cur = np.full(xp.size, 1e-300)
+    norm = np.zeros(xp.size)
+    for k in range(M, 0, -1):  # cur = J_k (unnormalised), nxt = J_{k+1}
+        prev = (2.0 * k / xp) * cur - nxt
+        if k % 2 == 0:
+            norm += 2.0 * cur
+        if k - 1 < n:
+            table[k - 1] = prev
+        nxt, cur = cur, prev
+        big = np.abs(cur) > 1e200
+        if np.any(big):
+            scale = np.where(big, 1e-200, 1.0)
+            cur, nxt, norm = cur * scale, nxt * scale, norm * scale
+            table[k - 1:] *= scale
+    norm += cur  # + J_0
+    out[:, pos] = table / norm
+    return out
 
 
 def chebyshev_coefficients(r_t: float, tol: float = DEFAULT_TOL) -> np.ndarray:
@@ -129,7 +163,7 @@ class ChebyshevPropagator:
         the number of terms each time needs (non-decreasing)."""
         n_terms = len(chebyshev_coefficients(self.radius * float(t.max()), self.tol))
         k = np.arange(n_terms)
-        coeff = jv(k[:, None], self.radius * t[None, :]) * np.where(k == 0, 1.0, 2.0)[:, None]
+        coeff = bessel_table(n_terms, self.radius * t) * np.where(k == 0, 1.0, 2.0)[:, None]
         # (−i)^k = 1, −i, −1, i: the sign goes into the fold, the factor i into the output
         coeff *= np.array([1.0, -1.0, -1.0, 1.0])[k % 4][:, None]
         big = np.abs(coeff) > self.tol

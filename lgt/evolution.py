@@ -41,7 +41,7 @@ DEFAULT_DRIFT_TOLERANCE = 1e-8
 #: Below this dimension observables are measured inline instead of in a background thread.
 BACKGROUND_MEASURE_DIMENSION = 20_000
 #: States waiting for the measurement thread at most (bounds memory: each is 16·dim bytes).
-MAX_PENDING = 4
+MAX_PENDING = 2
 #: With ``entropy_stride = "auto"`` the entropies take at most 1/ENTROPY_SHARE of the propagation.
 ENTROPY_SHARE = 4
 ENTROPIES = ("entanglement_entropy", "renyi2_entropy")

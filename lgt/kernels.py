@@ -15,6 +15,7 @@ Without numba (``HAVE_NUMBA`` False) the same functions fall back to scipy/numpy
 
 from __future__ import annotations
 
+import functools
 import importlib.util
 import os
 import threading
@@ -198,10 +199,13 @@ def occupation_bytes(occupations: np.ndarray) -> np.ndarray:
                                             bitorder="little"))
 
 
+@functools.lru_cache(maxsize=64)
 def byte_bits(N: int, block: int) -> np.ndarray:
     """(256, w) 0/1 matrix: bit s of each byte value for the sites of byte ``block`` (w ≤ 8)."""
     width = min(8, N - 8 * block)
-    return ((np.arange(256)[:, None] >> np.arange(width)[None, :]) & 1).astype(np.float64)
+    bits = ((np.arange(256)[:, None] >> np.arange(width)[None, :]) & 1).astype(np.float64)
+    bits.flags.writeable = False  # shared by the cache
+    return bits
 
 
 def occupation_products_from_histograms(marginal: np.ndarray, joint: np.ndarray, N: int) -> np.ndarray:

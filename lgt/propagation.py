@@ -29,7 +29,7 @@ from lgt.resources import CHUNK_BYTES
 METHODS = ("chebyshev", "expm_multiply")
 #: Most stored times one Chebyshev block holds: the fold of the series into the outputs costs
 #: ∝ terms × times, so long blocks lose more to folding than they save in products.
-MAX_BLOCK_TIMES = 16
+MAX_BLOCK_TIMES = 128
 #: Use the Lanczos interval when the run needs more Gershgorin products than this many Lanczos runs.
 LANCZOS_PAYS = 4
 
@@ -64,10 +64,12 @@ class SchrodingerOperator(LinearOperator):
             diag = kernel.matrix.diagonal()
             shift = 0.5 * float(diag.max() + diag.min()) if diag.size else 0.0
         self.shift = shift
+        self.products = 0  # H products applied (columns)
 
     def _matmat(self, X: np.ndarray) -> np.ndarray:
         X = np.ascontiguousarray(X, dtype=np.complex128)
         n, k = X.shape
+        self.products += k
         xr = X.view(np.float64).reshape(n, 2 * k)
         hx = np.empty_like(xr)
         self.kernel.fused(xr, xr, hx, 1.0, -self.shift, 0.0)
@@ -186,7 +188,7 @@ class ExactPropagator:
         if times.size == 0:
             return
         prop = ChebyshevPropagator(self.kernel, self.interval_for(float(times[-1])))
-        per_block = max(1, min(MAX_BLOCK_TIMES, int(self.chunk_bytes // (32 * max(psi.size, 1)))))
+        per_block = max(1, min(MAX_BLOCK_TIMES, int(self.chunk_bytes // (32 * max(psi.size, 1)))))  # acc: 16 B per entry and time
         t_now, i = 0.0, 0
         try:
             while i < times.size:
@@ -208,10 +210,16 @@ class ExactPropagator:
 
     def _expm(self, psi: np.ndarray, times: np.ndarray) -> Iterator[tuple[int, np.ndarray]]:
         op = SchrodingerOperator(self.kernel)
-        t_now = 0.0
-        i = 0
         per_chunk = max(1, int(self.chunk_bytes // (16 * max(psi.size, 1))) - 1)
         uniform = _uniform(times)
+        try:
+            yield from self._expm_chunks(op, psi, times, per_chunk, uniform)
+        finally:
+            self.products += op.products
+
+    def _expm_chunks(self, op: SchrodingerOperator, psi: np.ndarray, times: np.ndarray, per_chunk: int,
+                     uniform: bool) -> Iterator[tuple[int, np.ndarray]]:
+        t_now, i = 0.0, 0
         while i < times.size:
             if times[i] == t_now:
                 yield i, psi.copy()

@@ -215,3 +215,14 @@ def test_variational_reference_and_trotter_use_the_exact_propagator():
     np.testing.assert_allclose(shared, own, atol=1e-13)
     # infidelity ∝ (error)² ∝ dt⁴ for second order: halving dt divides it by ~16
     assert 8.0 < coarse / shared.max() < 32.0
+
+
+def test_bessel_table_matches_scipy_jv():
+    # reference: scipy.special.jv (Amos / Cephes)
+    from scipy.special import jv
+
+    from lgt.chebyshev import bessel_table
+
+    x = np.concatenate([[0.0, 1e-9, 1e-3], np.linspace(0.1, 400.0, 57)])
+    n = 480
+    np.testing.assert_allclose(bessel_table(n, x), jv(np.arange(n)[:, None], x[None, :]), atol=5e-14)
