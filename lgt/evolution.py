@@ -44,6 +44,8 @@ BACKGROUND_MEASURE_DIMENSION = 20_000
 MAX_PENDING = 2
 #: With ``entropy_stride = "auto"`` the entropies take at most 1/ENTROPY_SHARE of the propagation.
 ENTROPY_SHARE = 4
+#: Below this many eigensolve flops in total (n_times × side³) the entropies take every stored time.
+ENTROPY_FREE_FLOPS = 1e9
 ENTROPIES = ("entanglement_entropy", "renyi2_entropy")
 
 
@@ -139,14 +141,15 @@ def entropy_stride(setting: int | str, basis: PhysicalBasis, cut: int, times: np
     1/:data:`ENTROPY_SHARE` of the propagation's time. One eigensolve of the reduced density
     matrix costs about side³ flops (side: the kept side of the cut), a stored time's share of
     the propagation about nonzeros × products per stored time; the two constants agree within a
-    factor 2 on this machine (measured, docs/performance.md). Small cuts (side ≤ 64) are always
-    taken at every stored time. The last stored time is always included.
+    factor 2 on this machine (measured, docs/performance.md). When all the eigensolves together
+    stay below :data:`ENTROPY_FREE_FLOPS` (about a second) every stored time is taken. The last
+    stored time is always included.
     """
     if setting != "auto":
         return int(setting)
     side = min(cut_structure(basis, cut).shape)
     n = times.size
-    if side <= 64 or n <= 2:
+    if n * side ** 3 <= ENTROPY_FREE_FLOPS or n <= 2:
         return 1
     span = float(times[-1] - times[0])
     per_time = max(1.0, 2.0 * half_width * span / (n - 1)) + 35.0 / MAX_BLOCK_TIMES
