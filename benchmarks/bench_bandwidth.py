@@ -15,7 +15,6 @@ Usage::
 
 from __future__ import annotations
 
-import argparse
 import json
 import os
 import sys
@@ -23,10 +22,8 @@ import time
 
 import numpy as np
 
-from lgt.basis import PhysicalBasis
-from lgt.hamiltonian import build_hamiltonian
+from _common import comparison_parser, lattice_hamiltonian
 from lgt.kernels import SparseKernel
-from lgt.model import ModelParams
 
 
 def _timed(fn) -> float:
@@ -36,16 +33,12 @@ def _timed(fn) -> float:
 
 
 def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--sizes", type=int, nargs="*", default=[20, 22, 24])
-    ap.add_argument("--repeats", type=int, default=15)
+    ap = comparison_parser(__doc__, [20, 22, 24], 15)
     ap.add_argument("--threads", type=int, default=1)
-    ap.add_argument("--json", action="store_true")
     args = ap.parse_args()
     rows = []
     for N in args.sizes:
-        H = build_hamiltonian(PhysicalBasis(ModelParams(sites=N, hopping=1.0, mass=0.5, coupling=1.0,
-                                                        levels=3))).tocsr()
+        H = lattice_hamiltonian(N)
         dim = H.shape[0]
         kernel = SparseKernel(H, args.threads, compiled=True)
         rng = np.random.default_rng(0)

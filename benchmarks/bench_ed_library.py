@@ -34,9 +34,9 @@ import time
 from pathlib import Path
 
 import numpy as np
+from _common import MODEL, comparison_parser
 
 ROOT = Path(__file__).resolve().parents[1]
-MODEL = {"hopping": 1.0, "mass": 0.5, "coupling": 1.0, "levels": 3}
 
 
 def _peak_gib() -> float:
@@ -101,9 +101,10 @@ def library_side(N: int, t_final: float, dt: float) -> dict:
 
 def run_one(side: str, N: int, args) -> dict:
     env = dict(os.environ)
-    if args.threads:
-        env.update({k: str(args.threads) for k in ("OMP_NUM_THREADS", "NUMBA_NUM_THREADS",
-                                                   "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")})
+    threads = args.fluxline_threads if side == "fluxline" and args.fluxline_threads else args.threads
+    if threads:
+        env.update({k: str(threads) for k in ("OMP_NUM_THREADS", "NUMBA_NUM_THREADS",
+                                              "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")})
     cmd = [sys.executable, __file__, "--one", side, str(N), "--t-final", str(args.t_final), "--dt", str(args.dt)]
     out = subprocess.run(cmd, capture_output=True, text=True, cwd=ROOT, env=env)
     if out.returncode != 0:
@@ -112,14 +113,13 @@ def run_one(side: str, N: int, args) -> dict:
 
 
 def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--sizes", type=int, nargs="*", default=[16, 20, 22, 24])
+    ap = comparison_parser(__doc__, [16, 20, 22, 24], 3)
     ap.add_argument("--t-final", type=float, default=10.0)
     ap.add_argument("--dt", type=float, default=0.1)
-    ap.add_argument("--repeats", type=int, default=3)
     ap.add_argument("--threads", type=int, default=1, help="threads per process (0: leave unset)")
+    ap.add_argument("--fluxline-threads", type=int, default=0,
+                    help="threads of the Fluxline side only (default: as --threads)")
     ap.add_argument("--one", nargs=2, help=argparse.SUPPRESS)
-    ap.add_argument("--json", action="store_true")
     args = ap.parse_args()
     if args.one:
         side, N = args.one[0], int(args.one[1])
@@ -152,7 +152,8 @@ def main() -> None:
     if args.json:
         print(json.dumps(rows))
         return
-    print(f"library: {rows[0]['library']}; threads per process: {args.threads or 'unset'}")
+    print(f"library: {rows[0]['library']}; threads per process: {args.threads or 'unset'}"
+          f" (Fluxline: {args.fluxline_threads or args.threads or 'unset'})")
     print(f"{'N':>3} {'dim':>8} {'Fluxline s':>10} {'library s':>10} {'ratio':>6} {'peak GiB F/L':>13} "
           f"{'stride':>6} {'max|ΔL|':>8} {'load':>5}")
     for r in rows:

@@ -11,7 +11,6 @@ Usage::
 
 from __future__ import annotations
 
-import argparse
 import json
 import os
 import sys
@@ -20,9 +19,7 @@ import time
 import numpy as np
 import scipy.sparse.linalg as spla
 
-from lgt.basis import PhysicalBasis
-from lgt.hamiltonian import build_hamiltonian
-from lgt.model import ModelParams
+from _common import comparison_parser, lattice_hamiltonian
 from lgt.spectrum import lowest_eigenpairs
 
 
@@ -35,16 +32,12 @@ def one_arpack(H, count: int) -> np.ndarray:
 
 
 def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--sizes", type=int, nargs="*", default=[20, 22, 24])
+    ap = comparison_parser(__doc__, [20, 22, 24], 3)
     ap.add_argument("--count", type=int, default=2)
-    ap.add_argument("--repeats", type=int, default=3)
-    ap.add_argument("--json", action="store_true")
     args = ap.parse_args()
     rows = []
     for N in args.sizes:
-        H = build_hamiltonian(PhysicalBasis(ModelParams(sites=N, hopping=1.0, mass=0.5, coupling=1.0,
-                                                        levels=3))).tocsr()
+        H = lattice_hamiltonian(N)
         ours, arpack, loads = [], [], []
         for _ in range(args.repeats):
             loads.append(os.getloadavg()[0])

@@ -32,7 +32,7 @@ from lgt.spectrum import lanczos_tridiagonal
 #: Chebyshev vectors gathered (ring buffer) before they are folded into the outputs, and the
 #: most memory that buffer may take (large states use fewer vectors).
 BUFFER = 16
-BUFFER_BYTES = 32 * 2 ** 20
+BUFFER_BYTES = 64 * 2 ** 20
 #: Coefficients below this (relative to the sum's norm) end the series.
 DEFAULT_TOL = 1e-14
 #: Lanczos steps and relative safety margin (of the half-width) of :func:`lanczos_interval`.
