@@ -226,3 +226,17 @@ def test_bessel_table_matches_scipy_jv():
     x = np.concatenate([[0.0, 1e-9, 1e-3], np.linspace(0.1, 400.0, 57)])
     n = 480
     np.testing.assert_allclose(bessel_table(n, x), jv(np.arange(n)[:, None], x[None, :]), atol=5e-14)
+
+
+def test_auto_entropy_stride_follows_the_cost_rule():
+    # the documented rule (docs/dynamics.md; a cost model, common practice, no source): every
+    # stored time while the eigensolves are cheap in total, a stride once they would dominate
+    from lgt.evolution import entropy_stride
+
+    times = np.round(np.arange(101) * 0.1, 12)
+    small = PhysicalBasis(ModelParams(sites=10, hopping=1.0, mass=0.5, coupling=1.0))
+    assert entropy_stride("auto", small, 4, times, 2000, 10.0) == 1
+    big = PhysicalBasis(ModelParams(sites=20, hopping=1.0, mass=0.5, coupling=1.0))
+    stride = entropy_stride("auto", big, 9, times, 827_785, 18.6)
+    assert 1 < stride < 100
+    assert entropy_stride(3, big, 9, times, 827_785, 18.6) == 3
