@@ -184,36 +184,44 @@ class ChebyshevPropagator:
               else np.ascontiguousarray(psi.view(np.float64).reshape(dim, 2)))
         fold, needed = self._fold_coefficients(t)
         n_terms = fold.shape[0]
-        width = max(1, min(BUFFER, n_terms, BUFFER_BYTES // (8 * m * max(dim, 1)) - 2))
-        ring = np.empty((width + 2, dim, m))  # slots 0, 1: the two vectors before this buffer
+        half = max(1, min(BUFFER, n_terms, BUFFER_BYTES // (8 * m * max(dim, 1)) - 2) // 2)
+        # ring slots: 0, 1 the two vectors before this buffer; then the buffer's terms grouped by
+        # parity (terms first, first + 2, … in slots 2…, the others in slots 2 + half…), so each
+        # parity is one contiguous block for the fold (no copy)
+        ring = np.empty((2 * half + 2, dim, m))
         acc = [np.zeros((dim * m, t.size), order="F"), np.zeros((dim * m, t.size), order="F")]
+
+        def slot(q: int) -> int:  # ring slot of term first + q (q ≥ −2)
+            return q + 2 if q < 0 else 2 + (q % 2) * half + q // 2
+
         inv_r = 1.0 / self.radius
-        slot, first = 2, 0
+        first = 0
         ring[2] = x0
         for k in range(n_terms):
+            q = k - first
             if k == 1:
-                self.kernel.fused(ring[slot - 1], ring[slot - 1], ring[slot], inv_r, -self.center * inv_r, 0.0)
+                x = ring[slot(q - 1)]
+                self.kernel.fused(x, x, ring[slot(q)], inv_r, -self.center * inv_r, 0.0)
             elif k > 1:
-                self.kernel.fused(ring[slot - 1], ring[slot - 2], ring[slot], 2 * inv_r,
+                self.kernel.fused(ring[slot(q - 1)], ring[slot(q - 2)], ring[slot(q)], 2 * inv_r,
                                   -2 * self.center * inv_r, 1.0)
             self.products += k > 0
-            if slot == width + 1 or k == n_terms - 1:
+            if q == 2 * half - 1 or k == n_terms - 1:
                 j0 = int(np.searchsorted(needed, first, side="right"))
-                block = ring[2:slot + 1].reshape(slot - 1, dim * m).T
-                for parity in (0, 1):
-                    start = first + ((parity - first) % 2)  # first term of this parity
-                    if j0 >= t.size or start > k:
+                for offset in (0, 1):  # terms first + offset, first + offset + 2, …, up to k
+                    count = (q - offset) // 2 + 1
+                    if j0 >= t.size or count <= 0:
                         continue
-                    cols = np.asfortranarray(block[:, start - first::2])
+                    s0 = 2 + offset * half
+                    cols = ring[s0:s0 + count].reshape(count, dim * m).T
+                    parity = (first + offset) % 2
                     target = acc[parity][:, j0:]
-                    out = dgemm(1.0, cols, fold[start:k + 1:2, j0:], beta=1.0, c=target, overwrite_c=True)
+                    out = dgemm(1.0, cols, fold[first + offset:k + 1:2, j0:], beta=1.0, c=target,
+                                overwrite_c=True)
                     if not np.shares_memory(out, acc[parity]):  # pragma: no cover - BLAS made a copy
                         target[...] = out
+                ring[0], ring[1] = ring[slot(q - 1)], ring[slot(q)]
                 first = k + 1
-                ring[0], ring[1] = ring[slot - 1], ring[slot]
-                slot = 2
-            else:
-                slot += 1
         return acc[0], acc[1], m
 
     def _output(self, even: np.ndarray, odd: np.ndarray, m: int, t: float, j: int) -> np.ndarray:
