@@ -1,22 +1,19 @@
 """Exact quench dynamics in the physical subspace (task ``evolve``).
 
 ψ(t) = exp(−iHt) ψ₀ with H the real symmetric Gauss-law Hamiltonian (lattice units, ħ = 1),
-propagated by :func:`scipy.sparse.linalg.expm_multiply` (Al-Mohy & Higham 2011) on a complex128
-state. −iH is applied without a complex copy of H: the real matrix multiplies the (dim, 2) real
-view of ψ, split into row blocks that two threads process. Uniformly spaced stored times use the
-start/stop/num form of ``expm_multiply`` in memory-bounded chunks; other time lists are stepped
-one interval at a time. Observables (:mod:`lgt.observables`) are taken at every stored time;
-energy and norm drifts are recorded and warned on.
+propagated by the one exact propagator :class:`lgt.propagation.ExactPropagator` (Chebyshev by
+default, or ``expm_multiply``). Observables (:mod:`lgt.observables`) are taken at every stored
+time — the entanglement entropies at their own stride on large cuts (:func:`entropy_stride`) —
+in a background thread; energy and norm drifts are recorded and warned on.
 
 ``[evolution]`` keys: ``t_final`` and ``dt`` (t = 0, dt, …, t_final) or ``times`` (a strictly
 increasing list, t ≥ 0); optional ``cut`` (entanglement cut, default K // 2), ``observables``
-(subset of :data:`lgt.observables.OBSERVABLES`), ``drift_tolerance`` (default 1e-8) and
-``memory_limit_gb`` (default: the memory available now).
-"""
+(subset of :data:`lgt.observables.OBSERVABLES`), ``drift_tolerance`` (default 1e-8),
+``memory_limit_gb`` (default: the memory available now), ``method`` and ``entropy_stride``
+(integer ≥ 1 or ``"auto"``, the default)."""
 
 from __future__ import annotations
 
-import os
 import sys
 import time
 import warnings
@@ -25,34 +22,33 @@ from concurrent.futures import Future, ThreadPoolExecutor
 from typing import Any, Callable, Iterator, Mapping
 
 import numpy as np
-import scipy.sparse as sp
-from scipy.sparse.linalg import LinearOperator, expm_multiply
 
 from lgt.basis import PhysicalBasis
-from lgt.chebyshev import ChebyshevPropagator, gershgorin_interval
 from lgt.config import as_choice, as_float, as_int, check_keys
 from lgt.errors import ConfigError
 from lgt.hamiltonian import build_hamiltonian
-from lgt.model import ModelParams
-from circuits.blas_threads import single_threaded_blas
-from lgt.observables import OBSERVABLES, Observer
-from lgt.resources import (CHUNK_BYTES, available_memory, check_resources, count_physical_states,  # noqa: F401
+from lgt.observables import OBSERVABLES, Observer, cut_structure
+from lgt.propagation import MAX_BLOCK_TIMES, METHODS, ExactPropagator, SchrodingerOperator, product_threads  # noqa: F401
+from lgt.resources import (available_memory, check_resources, count_physical_states,  # noqa: F401
                            estimate_memory)
 from lgt.resolved import EvolutionConfig
 from lgt.results import RunResult, TimeSeries
 from lgt.states import prepare_initial_state
 
 EVOLUTION_KEYS = ("t_final", "dt", "times", "cut", "observables", "drift_tolerance", "memory_limit_gb",
-                  "method")
-#: Propagators: Chebyshev series over blocks of stored times (default), or scipy's expm_multiply.
-METHODS = ("chebyshev", "expm_multiply")
+                  "method", "entropy_stride")
 DEFAULT_DRIFT_TOLERANCE = 1e-8
 #: Most stored times a run may ask for.
 MAX_STORED_TIMES = 1_000_000
-#: Below this many non-zeros H is applied on the calling thread only.
-THREADED_NONZEROS = 200_000
 #: Below this dimension observables are measured inline instead of in a background thread.
 BACKGROUND_MEASURE_DIMENSION = 20_000
+#: States waiting for the measurement thread at most (bounds memory: each is 16·dim bytes).
+MAX_PENDING = 2
+#: With ``entropy_stride = "auto"`` the entropies take at most 1/ENTROPY_SHARE of the propagation.
+ENTROPY_SHARE = 4
+#: Below this many eigensolve flops in total (n_times × side³) the entropies take every stored time.
+ENTROPY_FREE_FLOPS = 1e9
+ENTROPIES = ("entanglement_entropy", "renyi2_entropy")
 
 
 # ---------------------------------------------------------------------- configuration
@@ -126,158 +122,46 @@ def validate_evolution_config(config: Mapping[str, Any]) -> EvolutionConfig:
     tol = as_float(section.get("drift_tolerance", DEFAULT_DRIFT_TOLERANCE),
                    "evolution.drift_tolerance", positive=True, maximum=1.0)
     method = as_choice(section.get("method", METHODS[0]), "evolution.method", METHODS)
+    stride = section.get("entropy_stride", "auto")
+    if stride != "auto":
+        stride = as_int(stride, "evolution.entropy_stride", minimum=1, maximum=MAX_STORED_TIMES)
     gb = None
     if "memory_limit_gb" in section:
         gb = as_float(section["memory_limit_gb"], "evolution.memory_limit_gb", positive=True)
     guard_memory(params, "evolve", limit_bytes=None if gb is None else int(gb * 2 ** 30),
                  limit_key="[evolution] memory_limit_gb")
     return EvolutionConfig(params, initial, tuple(float(t) for t in times), cut,
-                           tuple(dict.fromkeys(observables)), tol, method, gb)
+                           tuple(dict.fromkeys(observables)), tol, method, gb, stride)
 
 
 # ---------------------------------------------------------------------- propagation
-def product_threads() -> int:
-    """Threads for sparse products: OMP_NUM_THREADS if set (sweep workers pin it to 1), else
-    the CPUs this process may use, at most 4."""
-    env = os.environ.get("OMP_NUM_THREADS", "")
-    if env.isdigit() and int(env) > 0:
-        return int(env)
-    try:
-        available = len(os.sched_getaffinity(0))
-    except AttributeError:  # pragma: no cover - not on Linux
-        available = os.cpu_count() or 1
-    return max(1, min(available, 4))
+def propagate(prop: ExactPropagator, psi0: np.ndarray, times: np.ndarray) -> Iterator[tuple[int, np.ndarray]]:
+    """Yield (index, ψ(times[index])) for every stored time (see :class:`ExactPropagator`)."""
+    return prop.states(psi0, times)
 
 
-class SchrodingerOperator(LinearOperator):
-    """A = sign · (−i) (H − shift) for real symmetric sparse H, applied blockwise by threads.
+def entropy_stride(setting: int | str, basis: PhysicalBasis, cut: int, times: np.ndarray,
+                   nonzeros: int, half_width: float) -> int:
+    """Stored-time stride of the entanglement entropies (``[evolution] entropy_stride``).
 
-    ``sign = −1`` gives the adjoint (needed by the 1-norm estimator of ``expm_multiply``).
-    ``shift`` defaults to the midpoint of the diagonal, which minimises the diagonal's share of
-    ‖A‖₁ (about 10 % below scipy's own trace/n shift at N = 20), so fewer Taylor terms are needed.
+    An integer is used as given. ``"auto"`` (default): the entropies may take at most
+    1/:data:`ENTROPY_SHARE` of the propagation's time. One eigensolve of the reduced density
+    matrix costs about side³ flops (side: the kept side of the cut), a stored time's share of
+    the propagation about nonzeros × products per stored time; the two constants agree within a
+    factor 2 on this machine (measured, docs/performance.md). When all the eigensolves together
+    stay below :data:`ENTROPY_FREE_FLOPS` (about a second) every stored time is taken. The last
+    stored time is always included.
     """
-
-    def __init__(self, H: sp.csr_matrix, threads: int | None = None, sign: int = 1,
-                 shift: float | None = None, _blocks: list | None = None,
-                 _pool: ThreadPoolExecutor | None = None) -> None:
-        super().__init__(np.complex128, H.shape)
-        self.matrix = H
-        self.sign = sign
-        if shift is None:
-            diag = H.diagonal()
-            shift = 0.5 * float(diag.max() + diag.min()) if diag.size else 0.0
-        self.shift = shift
-        if _blocks is None:
-            if threads is None:  # thread dispatch costs more than it saves on small matrices
-                threads = 1 if H.nnz < THREADED_NONZEROS else product_threads()
-            edges = np.linspace(0, H.shape[0], threads + 1).astype(int)
-            _blocks = [H[a:b] for a, b in zip(edges[:-1], edges[1:]) if b > a]
-        self.blocks = _blocks
-        self.pool = _pool if _pool is not None else (ThreadPoolExecutor(len(_blocks)) if len(_blocks) > 1 else None)
-
-    def real_apply(self, x: np.ndarray) -> np.ndarray:
-        """H x for real x of shape (dim, k)."""
-        if self.pool is None:
-            return self.matrix @ x
-        return np.concatenate(list(self.pool.map(lambda B: B @ x, self.blocks)))
-
-    def _matmat(self, X: np.ndarray) -> np.ndarray:
-        X = np.ascontiguousarray(X, dtype=np.complex128)
-        n, k = X.shape
-        xr = X.view(np.float64).reshape(n, 2 * k)
-        hx = self.real_apply(xr)
-        if self.shift:
-            hx -= self.shift * xr
-        hx = hx.reshape(n, k, 2)
-        out = np.empty((n, k), dtype=np.complex128)
-        parts = out.view(np.float64).reshape(n, k, 2)
-        # ∓i (a + ib) = ±b ∓ ia, written straight into the real view (no complex multiply)
-        np.multiply(hx[..., 1], self.sign, out=parts[..., 0])
-        np.multiply(hx[..., 0], -self.sign, out=parts[..., 1])
-        return out
-
-    def _matvec(self, x: np.ndarray) -> np.ndarray:
-        return self._matmat(np.reshape(x, (-1, 1))).ravel()
-
-    def _adjoint(self) -> "SchrodingerOperator":
-        return SchrodingerOperator(self.matrix, sign=-self.sign, shift=self.shift,
-                                   _blocks=self.blocks, _pool=self.pool)
-
-    def hamiltonian_matvec(self, psi: np.ndarray) -> np.ndarray:
-        """H ψ (complex ψ, real H; the shift added back)."""
-        return self._matvec(psi) * (1j * self.sign) + self.shift * psi
-
-    def close(self) -> None:
-        if self.pool is not None:
-            self.pool.shutdown()
-
-
-def _uniform(times: np.ndarray) -> bool:
-    if times.size < 3:
-        return True
-    steps = np.diff(times)
-    return bool(np.allclose(steps, steps[0], rtol=1e-12, atol=0))
-
-
-def propagate(op: SchrodingerOperator, psi0: np.ndarray, times: np.ndarray,
-              chunk_bytes: int = CHUNK_BYTES, method: str = "chebyshev") -> Iterator[tuple[int, np.ndarray]]:
-    """Yield (index, ψ(times[index])) for every stored time, ψ(0) = psi0.
-
-    ``method="chebyshev"``: one Chebyshev recurrence per block of stored times (blocks hold at
-    most ``chunk_bytes`` of vectors; see :mod:`lgt.chebyshev`). ``method="expm_multiply"``:
-    uniform grids go through the start/stop/num form of ``expm_multiply`` in such chunks,
-    other grids one call per interval.
-    """
-    if method == "chebyshev":
-        yield from _propagate_chebyshev(op, psi0, times, chunk_bytes)
-        return
-    psi = np.ascontiguousarray(psi0, dtype=np.complex128)
-    t_now = 0.0
-    i = 0
-    per_chunk = max(1, int(chunk_bytes // (16 * max(psi.size, 1))) - 1)
-    uniform = _uniform(times)
-    while i < times.size:
-        if times[i] == t_now:
-            yield i, psi
-            i += 1
-            continue
-        k = min(per_chunk, times.size - i) if uniform and i > 0 else 1
-        t_end = times[i + k - 1]
-        with single_threaded_blas():  # vector algebra only; H products are threaded by ``op``
-            # traceA = 0: ``op`` is already shifted, scipy must not shift again
-            out = expm_multiply(op, psi, start=0.0, stop=t_end - t_now, num=k + 1, endpoint=True,
-                                traceA=0.0)
-        phases = np.exp(-1j * op.sign * op.shift * (np.asarray(times[i:i + k]) - t_now))
-        for r in range(1, k + 1):
-            out[r] *= phases[r - 1]  # restore the global phase of the shift
-            yield i + r - 1, out[r]
-        psi = np.ascontiguousarray(out[k])
-        t_now = float(t_end)
-        i += k
-        del out
-
-
-def _propagate_chebyshev(op: SchrodingerOperator, psi0: np.ndarray, times: np.ndarray,
-                         chunk_bytes: int) -> Iterator[tuple[int, np.ndarray]]:
-    """:func:`propagate` by Chebyshev blocks (H products threaded by ``op``)."""
-    psi = np.ascontiguousarray(psi0, dtype=np.complex128)
-    per_chunk = max(1, int(chunk_bytes // (16 * max(psi.size, 1))) - 1)
-    prop = ChebyshevPropagator(op.real_apply, gershgorin_interval(op.matrix), 1.0)
-    t_now, i = 0.0, 0
-    while i < times.size:
-        if times[i] == t_now:
-            yield i, psi
-            i += 1
-            continue
-        k = min(per_chunk, times.size - i)
-        with single_threaded_blas():  # small dense algebra; H products are threaded by ``op``
-            out = prop.block(psi, np.asarray(times[i:i + k]) - t_now)
-        for r in range(k):
-            yield i + r, out[r]
-        psi = np.ascontiguousarray(out[k - 1])
-        t_now = float(times[i + k - 1])
-        i += k
-        del out
+    if setting != "auto":
+        return int(setting)
+    side = min(cut_structure(basis, cut).shape)
+    n = times.size
+    if n * side ** 3 <= ENTROPY_FREE_FLOPS or n <= 2:
+        return 1
+    span = float(times[-1] - times[0])
+    per_time = max(1.0, 2.0 * half_width * span / (n - 1)) + 35.0 / MAX_BLOCK_TIMES
+    ratio = side ** 3 / (nonzeros * per_time)
+    return max(1, min(n - 1, int(np.ceil(ENTROPY_SHARE * ratio))))
 
 
 # ---------------------------------------------------------------------- the task
@@ -299,7 +183,7 @@ def run_evolution(config: Mapping[str, Any], progress: bool = False,
         energy_drift (max |E(t) − E(0)| / max(|E(0)|, 1)), norm_drift (max |‖ψ‖² − 1|).
     """
     resolved = validate_evolution_config(config)  # idempotent on resolved configs
-    params = ModelParams.from_dict(resolved["model"])
+    params = resolved.model
     ev = resolved["evolution"]
     times = np.asarray(ev["times"], dtype=float)
     t0 = time.perf_counter()
@@ -307,17 +191,24 @@ def run_evolution(config: Mapping[str, Any], progress: bool = False,
     H = build_hamiltonian(basis).tocsr()
     t1 = time.perf_counter()
     psi0 = prepare_initial_state(basis, resolved["initial"])
-    op = SchrodingerOperator(H)
+    prop = ExactPropagator(H, method=ev.get("method", METHODS[0]))
     which = list(ev["observables"])
     internal = list(dict.fromkeys(which + ["energy", "norm"]))
     observer = Observer(basis, H, reference=psi0, cut=ev["cut"], which=internal,
-                        matvec=op.hamiltonian_matvec)
+                        matvec=prop.hamiltonian_matvec, energy=prop.energy)
+    stride = 1
+    if set(ENTROPIES) & set(which):
+        lo, hi = prop.interval_for(float(times[-1]))
+        stride = entropy_stride(ev.get("entropy_stride", "auto"), basis, ev["cut"], times, H.nnz,
+                                0.5 * (hi - lo))
+    entropy_at = np.zeros(times.size, dtype=bool)
+    entropy_at[::stride] = True
+    entropy_at[-1] = True
     t2 = time.perf_counter()
     records: dict[str, list] = {name: [] for name in internal}
     bar = _progress_bar(times.size, progress)
-    # measurements run in one background thread, overlapping the single-threaded vector algebra
-    # of expm_multiply; at most ``max_pending`` states wait (bounded memory)
-    max_pending = max(2, int(CHUNK_BYTES // (16 * basis.dimension)))
+    # measurements run in one background thread (the kernels release the GIL, so it overlaps the
+    # products); at most MAX_PENDING states wait (bounded memory)
     pending: deque[Future] = deque()
     results: list[dict] = []
 
@@ -328,20 +219,20 @@ def run_evolution(config: Mapping[str, Any], progress: bool = False,
 
     measurer = ThreadPoolExecutor(1)
     try:
-        for index, psi in propagate(op, psi0, times, method=ev.get("method", METHODS[0])):
+        for index, psi in propagate(prop, psi0, times):
             if callback is not None:
                 callback(index, psi)
             if basis.dimension < BACKGROUND_MEASURE_DIMENSION:
-                results.append(observer.measure(psi))
+                results.append(observer.measure(psi, bool(entropy_at[index])))
                 bar.update(1)
                 continue
-            pending.append(measurer.submit(observer.measure, psi))
-            drain(max_pending)
+            pending.append(measurer.submit(observer.measure, psi, bool(entropy_at[index])))
+            drain(MAX_PENDING)
         drain(0)
     finally:
         measurer.shutdown(cancel_futures=True)
         bar.close()
-        op.close()
+        prop.close()
     for values in results:
         for name, value in values.items():
             records[name].append(value)
@@ -354,11 +245,13 @@ def run_evolution(config: Mapping[str, Any], progress: bool = False,
     if energy_drift > tol or norm_drift > tol:
         warnings.warn(f"evolution drift above {tol:g}: relative energy drift {energy_drift:.2e}, "
                       f"norm drift {norm_drift:.2e}", RuntimeWarning, stacklevel=2)
-    series = {name: TimeSeries(times=times, values=np.asarray(records[name]), unit=OBSERVABLES[name])
+    series = {name: TimeSeries(times=times[entropy_at] if name in ENTROPIES else times,
+                               values=np.asarray(records[name]), unit=OBSERVABLES[name])
               for name in which}
     attributes = {"dimension": basis.dimension, "register_dimension": basis.register_dimension,
                   "cut": int(ev["cut"]), "energy_drift": energy_drift, "norm_drift": norm_drift,
-                  "initial_energy": float(energy[0]), "hamiltonian_nonzeros": int(H.nnz)}
+                  "initial_energy": float(energy[0]), "hamiltonian_nonzeros": int(H.nnz),
+                  "entropy_stride": int(stride), "hamiltonian_products": int(prop.products)}
     return RunResult(task="evolve", parameters=dict(resolved), series=series,
                      arrays={"field_values": params.field_values},
                      attributes=attributes,
@@ -381,6 +274,7 @@ def _progress_bar(total: int, enabled: bool):
     return tqdm(total=total, desc="evolve", unit="t", file=sys.stderr)
 
 
-__all__ = ["validate_evolution_config", "run_evolution", "propagate", "SchrodingerOperator",
+__all__ = ["validate_evolution_config", "run_evolution", "propagate", "SchrodingerOperator", "entropy_stride",
+           "product_threads",
            "count_physical_states", "estimate_memory", "check_resources", "resolve_times",
            "available_memory"]

@@ -24,11 +24,13 @@ from typing import Callable, Iterable
 import numpy as np
 import scipy.linalg as sla
 import scipy.sparse as sp
+from scipy.linalg.blas import zherk
 
 from circuits.blas_threads import single_threaded_blas
 from lgt import gauss
 from lgt.basis import PhysicalBasis, staggering
 from lgt.errors import ConfigError
+from lgt.kernels import occupation_bytes, occupation_products_from_histograms, state_moments
 
 #: Every observable :class:`Observer` can record, with its unit.
 OBSERVABLES: dict[str, str] = {
@@ -94,7 +96,12 @@ def register_leakage(basis: PhysicalBasis, register_vector: np.ndarray) -> float
 
 def loschmidt(reference: np.ndarray, psi: np.ndarray, sites: int) -> tuple[float, float]:
     """Echo |⟨ψ₀|ψ⟩|² and rate −ln(echo)/N (inf when the echo underflows to zero)."""
-    echo = float(abs(np.vdot(reference, psi)) ** 2)
+    return loschmidt_from_overlap(complex(np.vdot(reference, psi)), sites)
+
+
+def loschmidt_from_overlap(overlap: complex, sites: int) -> tuple[float, float]:
+    """Echo |⟨ψ₀|ψ⟩|² and rate −ln(echo)/N from the overlap ⟨ψ₀|ψ⟩."""
+    echo = float(abs(overlap) ** 2)
     rate = -np.log(echo) / sites if echo > 0 else np.inf
     return echo, float(rate)
 
@@ -172,9 +179,9 @@ def reduced_density_spectrum(psi: np.ndarray, cs: CutStructure) -> np.ndarray:
         M = M.T
     G = np.zeros((M.shape[0],) * 2, dtype=np.complex128)
     for rows, cols in cs.groups:
-        X = M[rows, cols]
-        G[rows, rows] += X @ X.conj().T
-    lam = sla.eigvalsh(G, overwrite_a=True, check_finite=False)
+        # X X† by zherk: only the upper triangle is formed (half the work of X @ X.conj().T)
+        G[rows, rows] += np.triu(zherk(1.0, np.asfortranarray(M[rows, cols])))
+    lam = sla.eigvalsh(G, lower=False, overwrite_a=True, check_finite=False)
     lam = np.clip(lam, 0.0, None)
     return lam / lam.sum()
 
@@ -207,12 +214,20 @@ class Observer:
         Observables to record (default: all of :data:`OBSERVABLES` that the inputs allow).
     matvec : callable, optional
         ψ ↦ Hψ (defaults to :func:`real_matvec` with ``hamiltonian``).
+    energy : callable, optional
+        ψ ↦ ⟨ψ|H|ψ⟩ (e.g. :meth:`lgt.propagation.ExactPropagator.energy`, one sweep without
+        storing Hψ); default ``vdot(ψ, matvec(ψ))``.
+
+    Every one-body quantity, the echo and the histograms behind ``charge_correlation`` come from
+    one sweep over ψ (:func:`lgt.kernels.state_moments`); ⟨n_i n_j⟩ is assembled from joint
+    histograms of byte-sized blocks of the occupation pattern instead of N² products per state.
     """
 
     def __init__(self, basis: PhysicalBasis, hamiltonian: sp.spmatrix | None = None,
                  reference: np.ndarray | None = None, cut: int | None = None,
                  which: Iterable[str] | None = None,
-                 matvec: Callable[[np.ndarray], np.ndarray] | None = None) -> None:
+                 matvec: Callable[[np.ndarray], np.ndarray] | None = None,
+                 energy: Callable[[np.ndarray], float] | None = None) -> None:
         self.basis = basis
         p = basis.params
         if which is None:
@@ -228,25 +243,31 @@ class Observer:
             raise ValueError("energy needs the Hamiltonian")
         self.reference = reference
         self.matvec = matvec or (lambda v: real_matvec(hamiltonian, v))
-        self.levels_t = np.ascontiguousarray(basis.levels.T)
+        self.energy = energy or (lambda v: float(np.vdot(v, self.matvec(v)).real))
+        self.levels = np.ascontiguousarray(basis.levels)
         self.values = p.field_values
         self.cut = cut_structure(basis, cut) if {"entanglement_entropy", "renyi2_entropy"} & set(self.which) else None
-        self.occupations = basis.occupations() if "charge_correlation" in self.which else None
+        self.occ_bytes = (occupation_bytes(basis.occupations()) if "charge_correlation" in self.which
+                          else None)
 
-    def measure(self, psi: np.ndarray) -> dict[str, float | np.ndarray]:
-        """Every selected observable of ψ (ψ need not be normalised; no renormalisation)."""
+    def measure(self, psi: np.ndarray, entropy: bool = True) -> dict[str, float | np.ndarray]:
+        """Every selected observable of ψ (ψ need not be normalised; no renormalisation).
+
+        ``entropy=False`` skips the entanglement entropies (taken at their own stride).
+        """
         with single_threaded_blas():
-            return self._measure(psi)
+            return self._measure(psi, entropy)
 
-    def _measure(self, psi: np.ndarray) -> dict[str, float | np.ndarray]:
+    def _measure(self, psi: np.ndarray, entropy: bool = True) -> dict[str, float | np.ndarray]:
         p = self.basis.params
-        prob = psi.real ** 2 + psi.imag ** 2
-        norm = float(prob.sum())
-        weights = level_weights(self.levels_t, prob, p.levels)
+        w = self.which
+        echo_wanted = "loschmidt_echo" in w or "loschmidt_rate" in w
+        norm, weights, overlap, hists = state_moments(psi, self.levels, p.levels,
+                                                      self.reference if echo_wanted else None,
+                                                      self.occ_bytes)
         mean_levels = weights @ np.arange(p.levels)
         occ = occupations_from_mean_levels(mean_levels, self.basis, norm)
         out: dict[str, float | np.ndarray] = {}
-        w = self.which
         if "electric_field" in w:
             out["electric_field"] = weights @ self.values
         if "electric_field_squared" in w:
@@ -258,24 +279,24 @@ class Observer:
         if "particle_density" in w:
             out["particle_density"] = particle_density(occ)
         if "charge_correlation" in w:
-            nn = occupation_products(self.occupations, prob)
+            nn = occupation_products_from_histograms(*hists, p.sites)
             out["charge_correlation"] = nn - np.outer(occ, occ)
         if "string_length" in w:
             out["string_length"] = float((weights @ np.abs(self.values - p.boundary_field)).sum())
-        if "loschmidt_echo" in w or "loschmidt_rate" in w:
-            echo, rate = loschmidt(self.reference, psi, p.sites)
+        if echo_wanted:
+            echo, rate = loschmidt_from_overlap(overlap, p.sites)
             if "loschmidt_echo" in w:
                 out["loschmidt_echo"] = echo
             if "loschmidt_rate" in w:
                 out["loschmidt_rate"] = rate
-        if self.cut is not None:
+        if self.cut is not None and entropy:
             vn, r2 = entropies_from_spectrum(reduced_density_spectrum(psi, self.cut))
             if "entanglement_entropy" in w:
                 out["entanglement_entropy"] = vn
             if "renyi2_entropy" in w:
                 out["renyi2_entropy"] = r2
         if "energy" in w:
-            out["energy"] = float(np.vdot(psi, self.matvec(psi)).real)
+            out["energy"] = float(self.energy(psi))
         if "norm" in w:
             out["norm"] = norm
         return out
@@ -284,4 +305,5 @@ class Observer:
 __all__ = ["OBSERVABLES", "Observer", "CutStructure", "cut_structure", "reduced_density_spectrum",
            "entropies_from_spectrum", "entanglement_entropy", "level_weights", "particle_density",
            "occupation_products", "occupations_from_mean_levels", "register_leakage", "loschmidt",
+           "loschmidt_from_overlap",
            "real_matvec"]

@@ -59,8 +59,9 @@ class PotentialConfig(ResolvedConfig):
 @dataclass(frozen=True, eq=True)
 class EvolutionConfig(ResolvedConfig):
     """Task ``evolve``: model, canonical ``[initial]`` (see :func:`lgt.states.resolve_initial`),
-    stored times (lattice units), entanglement cut, observables, drift tolerance, propagator and
-    the memory limit given (GiB, or None for the memory available)."""
+    stored times (lattice units), entanglement cut, observables, drift tolerance, propagator,
+    the memory limit given (GiB, or None for the memory available) and the entropies' stride
+    (``"auto"`` or a number of stored times)."""
 
     model: ModelParams
     initial: Mapping[str, Any]
@@ -70,6 +71,7 @@ class EvolutionConfig(ResolvedConfig):
     drift_tolerance: float
     method: str
     memory_limit_gb: float | None = None
+    entropy_stride: int | str = "auto"
 
     def with_observables(self, names: tuple[str, ...] | list[str]) -> "EvolutionConfig":
         """A copy that also measures ``names`` (known observable names; order kept, no repeats)."""
@@ -83,7 +85,8 @@ class EvolutionConfig(ResolvedConfig):
     def to_dict(self) -> dict[str, Any]:
         ev: dict[str, Any] = {"times": list(self.times), "cut": self.cut,
                               "observables": list(self.observables),
-                              "drift_tolerance": self.drift_tolerance, "method": self.method}
+                              "drift_tolerance": self.drift_tolerance, "method": self.method,
+                              "entropy_stride": self.entropy_stride}
         if self.memory_limit_gb is not None:
             ev["memory_limit_gb"] = self.memory_limit_gb
         return {"model": self.model.to_dict(), "initial": _plain(self.initial), "evolution": ev}

@@ -22,8 +22,13 @@ def _run(args: argparse.Namespace) -> int:
     result = get_task("evolve").run(resolved, progress=not args.quiet)
     write_output(args, result)
     if args.json:
-        out = {"times": result.series["energy"].times.tolist()}
-        out.update({k: np.asarray(result.series[k].values).tolist() for k in JSON_KEYS})
+        times = result.series["energy"].times
+        out = {"times": times.tolist()}
+        for k in JSON_KEYS:
+            series = result.series[k]
+            out[k] = np.asarray(series.values).tolist()
+            if not np.array_equal(series.times, times):  # entropies at their own stride
+                out[f"{k}_times"] = series.times.tolist()
         print(json.dumps(out))
         return 0
     a = result.attributes

@@ -20,6 +20,7 @@ from scipy.optimize import minimize
 from circuits.blas_threads import single_threaded_blas
 from circuits.fitting import FitResult, fit_to_target
 from lgt.hamiltonian import build_hamiltonian
+from lgt.propagation import evolve_states
 from lgt.variational.ansatz import ModelAnsatz
 
 MODES = ("dynamics", "compression")
@@ -67,14 +68,10 @@ class VariationalTrajectory:
 
 
 def exact_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: int) -> np.ndarray:
-    """Exact physical-subspace states at t_k = k dt, shape (n_steps + 1, dim)."""
+    """Exact physical-subspace states at t_k = k dt, shape (n_steps + 1, dim) (one exact
+    propagator, :func:`lgt.propagation.evolve_states`)."""
     H = ansatz.hamiltonian if ansatz.space == "physical" else build_hamiltonian(ansatz.basis)
-    A = (-1j * dt) * H.tocsr()
-    out = np.empty((n_steps + 1, psi0.size), dtype=np.complex128)
-    out[0] = psi0
-    for k in range(n_steps):
-        out[k + 1] = expm_multiply(A, out[k])
-    return out
+    return evolve_states(H, psi0, np.arange(n_steps + 1) * dt)
 
 
 def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: int,

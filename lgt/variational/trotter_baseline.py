@@ -13,12 +13,12 @@ from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
-from scipy.sparse.linalg import expm_multiply
 
 from circuits.register import Space
 from circuits.trotter import trotter_circuit
 from lgt.basis import PhysicalBasis
 from lgt.hamiltonian import build_hamiltonian, physical_terms
+from lgt.propagation import ExactPropagator
 from lgt.variational.ansatz import ordered_terms
 
 
@@ -32,20 +32,28 @@ def trotter_groups(basis: PhysicalBasis) -> list[list]:
 
 
 def trotter_max_infidelity(basis: PhysicalBasis, psi0: np.ndarray, t_final: float, n_steps: int,
-                           order: int, groups: list[list] | None = None) -> tuple[float, np.ndarray]:
-    """max_k (1 − |⟨ψ_exact(t_k)|ψ_Trotter(t_k)⟩|²) over t_k = k T/n, and the infidelity per step."""
+                           order: int, groups: list[list] | None = None,
+                           propagator: ExactPropagator | None = None) -> tuple[float, np.ndarray]:
+    """max_k (1 − |⟨ψ_exact(t_k)|ψ_Trotter(t_k)⟩|²) over t_k = k T/n, and the infidelity per step.
+
+    ``groups`` and ``propagator`` (the exact reference for this basis) are built when not given;
+    pass them to reuse one H across calls (as :func:`least_trotter_steps` does).
+    """
     groups = trotter_groups(basis) if groups is None else groups
+    own = propagator is None
+    propagator = ExactPropagator(build_hamiltonian(basis)) if own else propagator
     dt = t_final / n_steps
-    space = Space.subspace(basis.dimension)
-    step = trotter_circuit(space, groups, dt, 1, order)
-    A = (-1j * dt) * build_hamiltonian(basis)
-    exact = np.asarray(psi0, dtype=np.complex128)
-    approx = exact.copy()
+    step = trotter_circuit(Space.subspace(basis.dimension), groups, dt, 1, order)
+    approx = np.asarray(psi0, dtype=np.complex128).copy()
     infid = np.zeros(n_steps + 1)
-    for k in range(1, n_steps + 1):
-        exact = expm_multiply(A, exact)
-        approx = step.apply(None, approx)
-        infid[k] = 1.0 - abs(np.vdot(exact, approx)) ** 2
+    try:
+        for k, exact in propagator.states(psi0, np.arange(n_steps + 1) * dt):
+            if k > 0:
+                approx = step.apply(None, approx)
+                infid[k] = 1.0 - abs(np.vdot(exact, approx)) ** 2
+    finally:
+        if own:
+            propagator.close()
     return float(infid.max()), infid
 
 
@@ -65,24 +73,27 @@ def least_trotter_steps(basis: PhysicalBasis, psi0: np.ndarray, t_final: float, 
     """Fewest steps n whose trajectory keeps 1 − F ≤ ``tolerance`` at every step time in [0, T]
     (or, with ``measure``, keeps ``measure(n)`` ≤ ``tolerance``: another error of n steps)."""
     groups = trotter_groups(basis)
+    propagator = ExactPropagator(build_hamiltonian(basis))  # H built once for every bisection call
     history: list[tuple[int, float]] = []
 
     def error(n: int) -> float:
-        e = measure(n) if measure is not None else trotter_max_infidelity(basis, psi0, t_final, n, order, groups)[0]
+        e = (measure(n) if measure is not None
+             else trotter_max_infidelity(basis, psi0, t_final, n, order, groups, propagator)[0])
         history.append((n, e))
         return e
 
-    n = 1
-    while error(n) > tolerance:
-        if n >= max_steps:
-            return TrotterResult(order, None, history[-1][1], history)
-        n = min(2 * n, max_steps)
-    lo, hi = n // 2, n  # error(lo) > tolerance (or lo = 0), error(hi) ≤ tolerance
-    while hi - lo > 1:
-        mid = (lo + hi) // 2
-        if error(mid) <= tolerance:
-            hi = mid
-        else:
-            lo = mid
+    with propagator:
+        n = 1
+        while error(n) > tolerance:
+            if n >= max_steps:
+                return TrotterResult(order, None, history[-1][1], history)
+            n = min(2 * n, max_steps)
+        lo, hi = n // 2, n  # error(lo) > tolerance (or lo = 0), error(hi) ≤ tolerance
+        while hi - lo > 1:
+            mid = (lo + hi) // 2
+            if error(mid) <= tolerance:
+                hi = mid
+            else:
+                lo = mid
     best = dict(history)[hi]
     return TrotterResult(order, hi, best, sorted(history))
