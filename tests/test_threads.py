@@ -4,10 +4,19 @@ def test_product_threads_follow_omp_setting(monkeypatch):
     # sweep workers pin BLAS/OpenMP threads to one; the sparse products must follow
     from lgt.evolution import product_threads
 
+    import os
+
     monkeypatch.setenv("OMP_NUM_THREADS", "1")
     assert product_threads() == 1
+    monkeypatch.setenv("OMP_NUM_THREADS", "3")
+    assert product_threads() == 3
+    # unset: the CPUs this process may run on (the OS's affinity mask), capped at 4
     monkeypatch.delenv("OMP_NUM_THREADS")
-    assert 1 <= product_threads() <= 4
+    assert product_threads() == min(len(os.sched_getaffinity(0)), 4)
+    monkeypatch.setattr(os, "sched_getaffinity", lambda pid: set(range(16)))
+    assert product_threads() == 4
+    monkeypatch.setattr(os, "sched_getaffinity", lambda pid: {0})
+    assert product_threads() == 1
 
 
 def test_sweep_worker_pinning_limits_loaded_blas(monkeypatch):
