@@ -89,8 +89,15 @@ def plot_run(result: RunResult, outdir: str | Path, overlay: RunResult | None = 
     Files: ``{prefix}electric_field_map.png`` (and ``{prefix}electric_field_map_overlay.png``
     when ``overlay`` has fields), then ``{prefix}<name>.png`` for each of :data:`LINE_PLOTS`.
     A ``fit`` result is drawn as its exact reference with the fitted curves dashed on top,
-    plus ``{prefix}fit_diagnostics.png`` (infidelity, step infidelity, leakage vs time).
+    plus ``{prefix}fit_diagnostics.png`` (infidelity, step infidelity, leakage vs time). A
+    ``predict`` or ``analyze`` result is drawn by :func:`lgt.lab.plots.plot_lab_report`.
     """
+    if result.task in ("predict", "analyze"):  # exact, raw and mitigated curves with error bands
+        import json
+
+        from lgt.lab.plots import plot_lab_report
+
+        return plot_lab_report(json.loads(result.attributes["report_json"]), Path(outdir))
     if result.task == "fit" and overlay is None:
         exact, fitted = split_fit(result)
         written = _plot_pair(exact, fitted, Path(outdir), prefix, ("exact", "variational"))

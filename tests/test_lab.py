@@ -145,6 +145,10 @@ def test_analyze_reproduces_exact_observables_within_errors(tmp_path):
     assert len(list((tmp_path / "figures").glob("analyze_*.png"))) == 1 + PARAMS.n_links
     again = run_cli("analyze", str(csv), _config(tmp_path), "--output", str(tmp_path / "a.h5"))
     assert again.returncode == 2 and "--overwrite" in again.stderr
+    # `fluxline plot` of the saved file draws the same figures (raw, mitigated, exact)
+    plotted = run_cli("plot", str(tmp_path / "a.h5"), "--outdir", str(tmp_path / "replot"))
+    assert plotted.returncode == 0, plotted.stderr
+    assert len(list((tmp_path / "replot").glob("analyze_*.png"))) == 1 + PARAMS.n_links
 
 
 def test_hdf5_form_equals_csv_form(tmp_path):
