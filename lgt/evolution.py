@@ -42,9 +42,9 @@ from lgt.results import RunResult, TimeSeries
 from lgt.states import prepare_initial_state, resolve_initial
 
 EVOLUTION_KEYS = ("t_final", "dt", "times", "cut", "observables", "drift_tolerance", "memory_limit_gb",
-                  "method")
+                  "method", "bond_dimension", "truncation", "max_step", "trotter_order", "max_discarded_weight")
 #: Propagators: Chebyshev series over blocks of stored times (default), or scipy's expm_multiply.
-METHODS = ("chebyshev", "expm_multiply")
+METHODS = ("chebyshev", "expm_multiply", "mps")  # "mps": tensor networks, lgt.mps.evolve
 DEFAULT_DRIFT_TOLERANCE = 1e-8
 #: Below this many non-zeros H is applied on the calling thread only.
 THREADED_NONZEROS = 200_000
@@ -123,7 +123,11 @@ def validate_evolution_config(config: Mapping[str, Any]) -> dict[str, Any]:
         gb = as_float(section["memory_limit_gb"], "evolution.memory_limit_gb", positive=True)
         resolved_ev["memory_limit_gb"] = gb
         limit = int(gb * 2 ** 30)
-    check_resources(params, limit)
+    if method == "mps":  # MPS keys, memory and time estimate: lgt.mps.evolve
+        from lgt.mps.evolve import resolve_mps_evolution
+        resolved_ev.update(resolve_mps_evolution(section, params, limit))
+    else:
+        check_resources(params, limit)
     return {"model": params.to_dict(), "initial": initial, "evolution": resolved_ev}
 
 
@@ -291,6 +295,9 @@ def run_evolution(config: Mapping[str, Any], progress: bool = False,
         energy_drift (max |E(t) − E(0)| / max(|E(0)|, 1)), norm_drift (max |‖ψ‖² − 1|).
     """
     resolved = validate_evolution_config(config)  # idempotent on resolved configs
+    if resolved["evolution"]["method"] == "mps":
+        from lgt.mps.evolve import run_mps_evolution
+        return run_mps_evolution(resolved, progress=progress, callback=callback)
     params = ModelParams.from_dict(resolved["model"])
     ev = resolved["evolution"]
     times = np.asarray(ev["times"], dtype=float)

@@ -32,6 +32,8 @@ def _run(args: argparse.Namespace) -> int:
     if args.json:
         out = {"times": result.series["energy"].times.tolist()}
         out.update({k: np.asarray(result.series[k].values).tolist() for k in JSON_KEYS})
+        out.update({k: np.asarray(result.series[k].values).tolist()  # MPS runs (lgt.mps.evolve)
+                    for k in ("bond_dimension", "discarded_weight") if k in result.series})
         print(json.dumps(out))
         return 0
     a = result.attributes
