@@ -27,7 +27,7 @@ from lgt.hamiltonian import build_hamiltonian
 from lgt.model import ModelParams
 from lgt.spectrum import gaps, lowest_levels
 
-POTENTIAL_KEYS = ("distances", "masses")
+POTENTIAL_KEYS = ("distances", "masses", "method", "bond_dimension")  # method = "mps": lgt.mps.dmrg
 #: Fraction of the initial slope below which the potential counts as saturated.
 SATURATION_SLOPE = 0.5
 
@@ -83,8 +83,11 @@ def fit_string(distances: Sequence[int], potential: Sequence[float]) -> dict[str
             "plateau": plateau, "breaking_distance": breaking}
 
 
-def static_potential(params: ModelParams, distances: Sequence[int], masses: int = 3) -> dict[str, Any]:
+def static_potential(params: ModelParams, distances: Sequence[int], masses: int = 3,
+                     method: str = "exact", bond_dimension: int = 128) -> dict[str, Any]:
     """V(r) for each distance, meson masses, string tension and breaking-distance estimates.
+
+    ``method = "mps"``: every energy by DMRG (:mod:`lgt.mps.dmrg`, bond dimension cap).
 
     Raises
     ------
@@ -99,9 +102,16 @@ def static_potential(params: ModelParams, distances: Sequence[int], masses: int 
     rs = sorted({as_int(r, "potential.distances", minimum=1) for r in distances})
     placements = [static_pair_sites(params.sites, r) for r in rs]
     masses = as_int(masses, "potential.masses", minimum=1)
-    e_vacuum = ground_energy(params)
-    V = [ground_energy(params.replace(static_charges=((i, 1), (j, -1)))) - e_vacuum for i, j in placements]
-    m = meson_masses(params, masses)
+    energy, spectrum_gaps = ground_energy, meson_masses
+    if method == "mps":  # DMRG energies (lgt.mps.dmrg)
+        from functools import partial
+
+        from lgt.mps import dmrg
+        energy = partial(dmrg.ground_energy, chi=bond_dimension)
+        spectrum_gaps = partial(dmrg.meson_masses, chi=bond_dimension)
+    e_vacuum = energy(params)
+    V = [energy(params.replace(static_charges=((i, 1), (j, -1)))) - e_vacuum for i, j in placements]
+    m = spectrum_gaps(params, masses)
     fit = fit_string(rs, V)
     threshold = None
     if fit["string_tension"] and fit["string_tension"] > 0 and m.size:
@@ -127,7 +137,9 @@ def resolve_potential(config: Mapping[str, Any], distances: Sequence[int] | None
     for r in dist:
         static_pair_sites(params.sites, r, key)
     masses = as_int(section.get("masses", 3), "potential.masses", minimum=1)
-    return {"model": params.to_dict(), "potential": {"distances": [int(r) for r in dist], "masses": masses}}
+    from lgt.mps.dmrg import resolve_solver
+    return {"model": params.to_dict(), "potential": {"distances": [int(r) for r in dist], "masses": masses,
+                                                     **resolve_solver(section, "potential")}}
 
 
 __all__ = ["static_pair_sites", "ground_energy", "meson_masses", "fit_string", "static_potential",

@@ -88,7 +88,7 @@ def get_task(name: str, key: str = "task") -> Task:
 
 
 # ------------------------------------------------------------------------ the spectrum task
-SPECTRUM_KEYS = ("count",)
+SPECTRUM_KEYS = ("count", "method", "bond_dimension")  # method = "mps": lgt.mps.dmrg
 
 
 def validate_spectrum(config: Mapping[str, Any]) -> dict[str, Any]:
@@ -103,7 +103,8 @@ def validate_spectrum(config: Mapping[str, Any]) -> dict[str, Any]:
         raise ConfigError("spectrum", section, "must be a table")
     check_keys(section, SPECTRUM_KEYS, "spectrum")
     count = as_int(section.get("count", 6), "spectrum.count", minimum=1)
-    return {"model": model.to_dict(), "spectrum": {"count": count}}
+    from lgt.mps.dmrg import resolve_solver
+    return {"model": model.to_dict(), "spectrum": {"count": count, **resolve_solver(section, "spectrum")}}
 
 
 def run_spectrum(resolved: Mapping[str, Any]) -> RunResult:
@@ -119,6 +120,9 @@ def run_spectrum(resolved: Mapping[str, Any]) -> RunResult:
     from lgt.model import ModelParams
     from lgt.spectrum import lowest_levels
 
+    if resolved["spectrum"].get("method") == "mps":  # DMRG on long chains
+        from lgt.mps.dmrg import run_spectrum_task
+        return run_spectrum_task(resolved)
     t0 = time.perf_counter()
     basis = PhysicalBasis(ModelParams.from_dict(resolved["model"]))
     hamiltonian = build_hamiltonian(basis)

@@ -273,3 +273,16 @@ def test_mps_matches_exact_sixteen_sites(name):
         warnings.simplefilter("ignore", RuntimeWarning)
         small, _, _ = compare(model, initial, 5.0, 16)
     assert small["electric_field"] > errors["electric_field"]
+
+
+def test_spectrum_task_with_dmrg():
+    """``[spectrum] method = "mps"`` through the task registry equals the exact levels."""
+    pytest.importorskip("tenpy")
+    from lgt.tasks import get_task
+
+    task = get_task("spectrum")
+    config = {"model": {"sites": 8, "mass": 0.4, "theta": 1.0}, "spectrum": {"count": 2, "method": "mps",
+                                                                              "bond_dimension": 32}}
+    result = task.run(task.validate(config))
+    exact = exact_levels(ModelParams(sites=8, mass=0.4, theta=1.0), 2)
+    assert np.abs(result.arrays["energies"] - exact).max() < 1e-8

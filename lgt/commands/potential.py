@@ -15,7 +15,8 @@ def _run(args: argparse.Namespace) -> int:
 
     resolved = resolve_potential(load_config(args.config), args.distances)
     section = resolved["potential"]
-    out = static_potential(ModelParams.from_dict(resolved["model"]), section["distances"], section["masses"])
+    out = static_potential(ModelParams.from_dict(resolved["model"]), section["distances"], section["masses"],
+                           **{k: section[k] for k in ("method", "bond_dimension") if k in section})
     if args.json:
         print(json.dumps(out))
         return 0

@@ -18,6 +18,9 @@ def compute_spectrum(config: dict, count: int | None = None) -> dict:
     """Validate ``[model]`` (and optional ``[spectrum] count``), build H, return a summary dict."""
     params = ModelParams.from_dict(config.get("model", {}))
     section = config.get("spectrum", {})
+    if isinstance(section, dict) and section.get("method") == "mps":  # DMRG (lgt.mps.dmrg)
+        from lgt.mps.dmrg import spectrum_summary
+        return spectrum_summary(params, section, count)
     check_keys(section, ("count",), "spectrum")
     if count is None:
         count = as_int(section.get("count", 6), "spectrum.count", minimum=1)

@@ -15,10 +15,13 @@ from __future__ import annotations
 
 import logging
 from dataclasses import dataclass, field
+from typing import Any, Mapping
 
 import numpy as np
 
 from circuits.blas_threads import single_threaded_blas
+from lgt.config import as_choice, as_int, check_keys
+from lgt.errors import ConfigError
 from lgt.model import ModelParams
 from lgt.mps import require_tenpy
 from lgt.mps.chain import ChainMPS
@@ -173,5 +176,82 @@ def lowest_levels(params: ModelParams, count: int, chi: int = DEFAULT_DMRG_CHI) 
     return np.sort(lowest_states(params, count, chi).energies)
 
 
-__all__ = ["DMRGResult", "lowest_states", "ground_state", "lowest_levels", "tenpy_sites",
-           "from_tenpy", "mps_to_tenpy", "penalty_scale", "energy_bound", "DEFAULT_DMRG_CHI"]
+def ground_energy(params: ModelParams, chi: int = DEFAULT_DMRG_CHI) -> float:
+    """Lowest physical energy (lattice units)."""
+    return float(lowest_states(params, 1, chi).energies[0])
+
+
+def meson_masses(params: ModelParams, count: int = 3, chi: int = DEFAULT_DMRG_CHI) -> np.ndarray:
+    """The ``count`` lowest gaps E_k − E₀ (lattice energy units)."""
+    levels = lowest_levels(params, count + 1, chi)
+    return levels[1:] - levels[0]
+
+
+
+
+# ---------------------------------------------------------------------- task and command hooks
+#: Keys a ``[spectrum]`` / ``[potential]`` section takes for the DMRG route.
+SOLVER_KEYS = ("method", "bond_dimension")
+SOLVER_METHODS = ("exact", "mps")
+
+
+def resolve_solver(section: Mapping[str, Any], prefix: str) -> dict[str, Any]:
+    """``method`` ("exact" | "mps", default exact) and, for mps, ``bond_dimension`` (default 128).
+
+    Raises ConfigError naming ``<prefix>.method`` / ``<prefix>.bond_dimension``.
+    """
+    method = as_choice(section.get("method", "exact"), f"{prefix}.method", SOLVER_METHODS)
+    if method == "exact":
+        if "bond_dimension" in section:
+            raise ConfigError(f"{prefix}.bond_dimension", section["bond_dimension"],
+                              "only applies with method = \"mps\"")
+        return {}
+    chi = as_int(section.get("bond_dimension", DEFAULT_DMRG_CHI), f"{prefix}.bond_dimension", minimum=2)
+    return {"method": "mps", "bond_dimension": chi}
+
+
+def spectrum_result(params: ModelParams, count: int, chi: int) -> dict[str, Any]:
+    """Lowest ``count`` levels by DMRG with the keys of the exact spectrum summary (+ diagnostics)."""
+    import time
+
+    from lgt.resources import count_physical_states
+
+    t0 = time.perf_counter()
+    res = lowest_states(params, count, chi)
+    t1 = time.perf_counter()
+    energies = np.sort(res.energies)
+    dim = count_physical_states(params)
+    return {"model": params.to_dict(), "dimension": dim if dim < 2 ** 62 else float(dim),
+            "register_dimension": float(params.levels) ** params.n_links,
+            "energies": [float(e) for e in energies], "gaps": [float(e - energies[0]) for e in energies],
+            "build_seconds": 0.0, "solve_seconds": t1 - t0, "method": "mps", "bond_dimension": chi,
+            "max_bond": [int(c) for c in res.max_bond], "truncation_error": [float(e) for e in res.truncation_error],
+            "leakage": [float(x) for x in res.leakage]}
+
+
+def spectrum_summary(params: ModelParams, section: Mapping[str, Any], count: int | None = None) -> dict[str, Any]:
+    """``fluxline spectrum`` with ``[spectrum] method = "mps"``: validate the section, run DMRG."""
+    check_keys(section, ("count",) + SOLVER_KEYS, "spectrum")
+    solver = resolve_solver(section, "spectrum")
+    key, raw = ("--count", count) if count is not None else ("spectrum.count", section.get("count", 6))
+    return spectrum_result(params, as_int(raw, key, minimum=1), solver["bond_dimension"])
+
+
+def run_spectrum_task(resolved: Mapping[str, Any]):
+    """The ``spectrum`` task's RunResult for ``method = "mps"`` (arrays energies, gaps)."""
+    from lgt.results import RunResult
+
+    spec = resolved["spectrum"]
+    out = spectrum_result(ModelParams.from_dict(resolved["model"]), int(spec["count"]), int(spec["bond_dimension"]))
+    return RunResult(task="spectrum", parameters=dict(resolved),
+                     arrays={"energies": np.asarray(out["energies"]), "gaps": np.asarray(out["gaps"]),
+                             "max_bond": np.asarray(out["max_bond"]),
+                             "truncation_error": np.asarray(out["truncation_error"])},
+                     attributes={"dimension": out["dimension"], "levels_returned": len(out["energies"]),
+                                 "method": "mps", "max_leakage": max(out["leakage"])},
+                     timings={"build": 0.0, "solve": out["solve_seconds"]})
+
+
+__all__ = ["DMRGResult", "lowest_states", "ground_state", "lowest_levels", "ground_energy", "meson_masses", "tenpy_sites",
+           "from_tenpy", "mps_to_tenpy", "penalty_scale", "energy_bound", "DEFAULT_DMRG_CHI",
+           "resolve_solver", "spectrum_result", "spectrum_summary", "run_spectrum_task", "SOLVER_KEYS"]
