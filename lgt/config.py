@@ -20,7 +20,7 @@ from lgt.errors import ConfigError
 
 #: Top-level sections a Fluxline configuration may contain.
 KNOWN_SECTIONS = ("model", "initial", "evolution", "spectrum", "potential", "variational",
-                  "hardware", "sweep", "output")
+                  "hardware", "sweep", "output", "continuum")
 
 
 def load_config(path: str | Path) -> dict[str, Any]:

@@ -24,6 +24,7 @@ TASK_MODULES: dict[str, str] = {
     "evolve": "lgt.evolution",
     "fit": "lgt.variational.workflow",
     "size": "lgt.variational.workflow",
+    "continuum": "lgt.continuum",
 }
 
 

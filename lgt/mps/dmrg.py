@@ -126,7 +126,7 @@ def lowest_states(params: ModelParams, count: int = 1, chi: int = DEFAULT_DMRG_C
 def _lowest_states(params: ModelParams, count: int, chi: int, energy_tolerance: float,
                    max_sweeps: int) -> DMRGResult:
     from tenpy.algorithms.dmrg import TwoSiteDMRGEngine
-    from tenpy.models.lattice import TrivialLattice
+    from tenpy.models.lattice import Chain
     from tenpy.models.model import MPOModel
 
     sites = tenpy_sites(params)
@@ -135,7 +135,7 @@ def _lowest_states(params: ModelParams, count: int, chi: int, energy_tolerance: 
     penalty = penalty_scale(params)
     for _ in range(PENALTY_ROUNDS):
         mpo = to_tenpy(hamiltonian_mpo(params, penalty=penalty, constant=-shift), sites)
-        model = MPOModel(TrivialLattice(sites), mpo)
+        model = MPOModel(Chain(len(sites), sites[0], bc="open", bc_MPS="finite"), mpo)
         found, energies, info = [], [], {"chi": [], "err": [], "leak": [], "sweeps": []}
         leaked = False
         for _k in range(count):
