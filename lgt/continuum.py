@@ -13,9 +13,9 @@ to the mass cancels). Measured at each (x, N), N = number of staggered sites:
   ``bulk_fraction`` of the chain to keep the open ends out (Bañuls et al., PRD 93, 094512 (2016)
   use the same lattice operator).
 
-Extrapolations, in this order: N → ∞ at fixed x (M/g: a + b/N², the leading finite-box
-correction of a massive particle; Σ: a + b/N; ω: the slope of E₀ against N, which removes the
-surface energy), then x → ∞ by a least-squares polynomial in 1/√x (degree ``x_degree``,
+Extrapolations, in this order: N → ∞ at fixed x ((M/g)²: a + b/N², the relativistic
+dispersion E² = M² + k² of a particle in a box of length L ∝ N, lowest k ∝ 1/L; Σ: a + b/N;
+ω: the slope of E₀ against N, which removes the surface energy), then x → ∞ by a least-squares polynomial in 1/√x (degree ``x_degree``,
 weighted by the N-extrapolation errors). Uncertainties are the fits' standard errors
 (covariance of the least-squares coefficients); they do not include the window truncation d
 or the DMRG truncation, which are reported per point.
@@ -180,7 +180,9 @@ def extrapolate_volume(points: list[dict[str, float]]) -> dict[str, float]:
     """N → ∞ at one x: M/g in 1/N², Σ/g in 1/N, ω from the slope of E₀ against N."""
     N = np.array([p["sites"] for p in points], float)
     x = points[0]["x"]
-    M, dM = extrapolate(1.0 / N ** 2, [p["meson_mass"] for p in points], 1)
+    M2, dM2 = extrapolate(1.0 / N ** 2, [p["meson_mass"] ** 2 for p in points], 1)
+    M = float(np.sqrt(max(M2, 0.0)))
+    dM = float(dM2 / (2 * M)) if M > 0 else float("nan")
     S, dS = extrapolate(1.0 / N, [p["condensate"] for p in points], 1)
     coef, cov = weighted_fit(N, [p["E0"] for p in points], 1)
     w, dw = coef[1] / (2 * x), np.sqrt(cov[1, 1]) / (2 * x) if np.isfinite(cov[1, 1]) else np.nan

@@ -140,11 +140,12 @@ def _lowest_states(params: ModelParams, count: int, chi: int, energy_tolerance: 
         leaked = False
         for _k in range(count):
             psi = start_state(params, sites)
-            options = {"mixer": True, "diag_method": "lanczos", "max_E_err": energy_tolerance, "max_S_err": 1e-6,
-                       "min_sweeps": 4, "max_sweeps": max_sweeps, "combine": True,
+            options = {"mixer": True, "mixer_params": {"amplitude": 1e-5, "decay": 2.0, "disable_after": 4},
+                       "diag_method": "lanczos", "max_E_err": energy_tolerance, "max_S_err": 1e-5,
+                       "min_sweeps": 3, "max_sweeps": max_sweeps, "combine": True,
                        "chi_list": {0: min(16, chi), 2: min(48, chi), 4: chi},
                        "trunc_params": {"chi_max": chi, "svd_min": 1e-12},
-                       "lanczos_params": {"N_max": 40, "E_tol": 1e-14}}
+                       "lanczos_params": {"N_max": 20, "E_tol": 1e-13}}
             engine = TwoSiteDMRGEngine(psi, model, options, orthogonal_to=list(found))
             E, psi = engine.run()
             state = from_tenpy(psi)
