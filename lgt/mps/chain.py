@@ -48,6 +48,39 @@ def truncated_svd(M: np.ndarray, trunc: Truncation) -> tuple[np.ndarray, np.ndar
     return U[:, :keep], S, Vh[:keep], dropped
 
 
+#: Gram eigenvalues below this fraction of the largest are numerical zero (Gram splits).
+GRAM_FLOOR = 1e-14
+
+
+def gram_split(M: np.ndarray, trunc: Truncation, keep_left: bool) -> tuple[np.ndarray, np.ndarray, float]:
+    """Truncated factorisation M ≈ X·Y through the eigenvectors of a Gram matrix.
+
+    ``keep_left``: X is a left isometry (eigenvectors of M M†) and Y = X† M; otherwise Y is a
+    right isometry (eigenvectors of M† M) and X = M Y†. The kept subspace is that of the
+    largest singular values, as in a truncated SVD; the Gram eigenvalues λ = s² are accurate to
+    ~1e-16 · s_max², enough to decide truncations of relative weight ≥ 1e-14 (the same device as
+    the density-matrix truncation of White, PRL 69, 2863 (1992)). About four times cheaper than
+    the SVD of the (χd) × (χd²) three-site matrix. Returns X, Y (norm 1) and the dropped weight.
+    """
+    G = M @ M.conj().T if keep_left else M.conj().T @ M
+    lam, W = np.linalg.eigh(G)
+    lam, W = lam[::-1].clip(0.0), W[:, ::-1]
+    total = float(lam.sum())
+    if total == 0.0:
+        raise FloatingPointError("MPS tensor vanished (norm zero)")
+    w = lam / total
+    tail = np.cumsum(w[::-1])[::-1]
+    floor = max(trunc.truncation, 0.0)
+    keep = int(np.sum((tail > floor) & (w > GRAM_FLOOR)))
+    keep = max(1, min(keep, trunc.chi))
+    dropped = float(tail[keep]) if keep < w.size else 0.0
+    W = W[:, :keep]
+    scale = 1.0 / np.sqrt(total * (1.0 - dropped)) if dropped < 1 else 1.0
+    if keep_left:
+        return W, (W.conj().T @ M) * scale, dropped
+    return (M @ W) * scale, W.conj().T, dropped
+
+
 class ChainMPS:
     """Finite MPS on K qudits of dimension d (mixed canonical around ``center``)."""
 
@@ -132,22 +165,20 @@ class ChainMPS:
         theta = theta.reshape(l, d ** 3, r)
         theta = np.einsum("ij,ljr->lir", gate, theta, optimize=True).reshape(l, d, d, d, r)
         if rightward:
-            U, S, Vh, w1 = truncated_svd(theta.reshape(l * d, d * d * r), trunc)
+            U, rest, w1 = gram_split(theta.reshape(l * d, d * d * r), trunc, True)
             self.tensors[s] = U.reshape(l, d, -1)
-            rest = (S[:, None] * Vh).reshape(-1, d, d, r)
             m = rest.shape[0]
-            U2, S2, Vh2, w2 = truncated_svd(rest.reshape(m * d, d * r), trunc)
+            U2, rest2, w2 = gram_split(rest.reshape(m * d, d * r), trunc, True)
             self.tensors[s + 1] = U2.reshape(m, d, -1)
-            self.tensors[s + 2] = (S2[:, None] * Vh2).reshape(-1, d, r)
+            self.tensors[s + 2] = rest2.reshape(-1, d, r)
             self.center = s + 2
         else:
-            U, S, Vh, w1 = truncated_svd(theta.reshape(l * d * d, d * r), trunc)
+            rest, Vh, w1 = gram_split(theta.reshape(l * d * d, d * r), trunc, False)
             self.tensors[s + 2] = Vh.reshape(-1, d, r)
-            rest = (U * S[None, :]).reshape(l, d, d, -1)
-            m = rest.shape[3]
-            U2, S2, Vh2, w2 = truncated_svd(rest.reshape(l * d, d * m), trunc)
+            m = rest.shape[1]
+            rest2, Vh2, w2 = gram_split(rest.reshape(l * d, d * m), trunc, False)
             self.tensors[s + 1] = Vh2.reshape(-1, d, m)
-            self.tensors[s] = (U2 * S2[None, :]).reshape(l, d, -1)
+            self.tensors[s] = rest2.reshape(l, d, -1)
             self.center = s
         self.discarded += w1 + w2
 

@@ -3,7 +3,7 @@
 Bond dimensions are capped by χ and by the register itself: χ_b ≤ min(χ, d^b, d^(K−b)).
 Memory: the MPS (Σ_b χ_b d χ_{b+1} complex numbers), a few gate workspaces of χ² d³ complex
 numbers, the cached gates and the interpreter baseline. Time: one 3-link gate costs about
-``GATE_FLOPS`` · (d χ)² · d² χ floating-point operations (two truncated SVDs dominate); a Suzuki
+``GATE_FLOPS`` · (d χ)² · d² χ floating-point operations (two truncated Gram splits dominate); a Suzuki
 fourth-order step applies about (20/3)·K gates (second order: (4/3)·K). ``FLOP_RATE`` is a
 measured single-core throughput on this project's development machine (replace with yours).
 """
@@ -14,9 +14,9 @@ import numpy as np
 
 from lgt.resources import BASELINE_BYTES
 
-#: Effective flops per (dχ)²·d²χ of one gate (two SVDs and the contractions), measured.
-GATE_FLOPS = 30.0
-#: Sustained flop rate of one core for these SVDs (measured, ~2 GFlop/s; illustrative).
+#: Effective flops per (dχ)²·d²χ of one gate (two Gram splits and the contractions), measured at χ = 64.
+GATE_FLOPS = 14.0
+#: Flop rate one process got on the shared 2-core development machine (load ≈ 10); illustrative.
 FLOP_RATE = 2.0e9
 #: Gates per Trotter step per link, by order (layer count of the merged product / 3).
 GATES_PER_LINK = {2: 4.0 / 3.0, 4: 20.0 / 3.0}
