@@ -6,7 +6,8 @@ left-orthonormal, tensors right of it right-orthonormal, so the norm and every l
 are read off the center tensor and every truncation there is optimal (Schollwöck, Ann. Phys.
 326, 96 (2011)). Truncation keeps at most ``chi`` Schmidt values and drops the smallest ones
 whose relative weight sums to at most ``truncation``; the state is renormalised and the dropped
-weight is accumulated in ``discarded``.
+weight is accumulated in ``discarded``. Gates are split through Gram-matrix eigenvectors
+(:func:`gram_split`); the Schmidt values of measurements come from SVDs.
 """
 
 from __future__ import annotations
@@ -25,27 +26,6 @@ class Truncation:
 
     chi: int
     truncation: float = 0.0
-
-
-def truncated_svd(M: np.ndarray, trunc: Truncation) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
-    """SVD of M with at most ``trunc.chi`` values kept; returns U, S (normalised), Vh, dropped weight."""
-    try:
-        U, S, Vh = sla.svd(M, full_matrices=False, check_finite=False, lapack_driver="gesdd")
-    except np.linalg.LinAlgError:  # pragma: no cover - gesdd rarely fails to converge
-        U, S, Vh = sla.svd(M, full_matrices=False, check_finite=False, lapack_driver="gesvd")
-    w = S ** 2
-    total = float(w.sum())
-    if total == 0.0:
-        raise FloatingPointError("MPS tensor vanished (norm zero)")
-    w /= total
-    # tail[i] = weight of values i.. (dropping from i on)
-    tail = np.cumsum(w[::-1])[::-1]
-    keep = int(np.sum(tail > trunc.truncation)) if trunc.truncation > 0 else int(np.sum(w > 1e-30))
-    keep = max(1, min(keep, trunc.chi))
-    dropped = float(tail[keep]) if keep < w.size else 0.0
-    S = S[:keep]
-    S = S / np.linalg.norm(S)
-    return U[:, :keep], S, Vh[:keep], dropped
 
 
 #: Gram eigenvalues below this fraction of the largest are numerical zero (Gram splits).
@@ -238,4 +218,4 @@ def entropies(schmidt: np.ndarray) -> tuple[float, float]:
     return float(-(p * np.log(p)).sum()) + 0.0, float(-np.log((p ** 2).sum())) + 0.0
 
 
-__all__ = ["ChainMPS", "Truncation", "truncated_svd", "entropies"]
+__all__ = ["ChainMPS", "Truncation", "gram_split", "entropies"]
