@@ -78,8 +78,8 @@ def test_massless_schwinger_model():
     pytest.importorskip("tenpy")
     from lgt.continuum import run_continuum
 
-    config = {"continuum": {"x": [4.0, 9.0, 16.0], "volumes": [8.0, 10.0, 12.0], "levels": 5,
-                            "bond_dimension": 48, "x_degree": 1}}
+    config = {"continuum": {"x": [4.0, 9.0, 16.0], "volumes": [6.0, 8.0, 10.0], "levels": 5,
+                            "bond_dimension": 40, "x_degree": 1}}
     result = run_continuum(resolve_continuum(config))
     fin = {k: float(v[0]) for k, v in result.tables["continuum"].columns.items()}
     assert fin["meson_mass"] == pytest.approx(SCHWINGER_BOSON_MASS, rel=0.01)

@@ -15,7 +15,7 @@ physical subspace, 1 − ⟨P⟩).
 Extra ``[evolution]`` keys: ``bond_dimension`` (χ cap, default 64), ``truncation`` (largest
 discarded weight per SVD, default 1e-12), ``max_step`` (longest Trotter step, default 0.1),
 ``trotter_order`` (2 or 4, default 4), ``max_discarded_weight`` (flag threshold on the summed
-discarded weight, default 1e-6). ``drift_tolerance`` defaults to 1e-4 here (relative energy drift).
+discarded weight, default 1e-5). ``drift_tolerance`` defaults to 1e-4 here (relative energy drift).
 When a threshold is exceeded a RuntimeWarning is issued and the result attributes
 ``flag_discarded_weight`` / ``flag_energy_drift`` are True (written to the HDF5 file).
 """
@@ -46,7 +46,7 @@ from lgt.states import initial_fields, quench_params
 
 MPS_KEYS = ("bond_dimension", "truncation", "max_step", "trotter_order", "max_discarded_weight")
 DEFAULTS: dict[str, Any] = {"bond_dimension": 64, "truncation": 1e-12, "max_step": 0.1,
-                            "trotter_order": 4, "max_discarded_weight": 1e-6}
+                            "trotter_order": 4, "max_discarded_weight": 1e-5}
 #: Relative energy drift tolerated by default (Trotter and truncation errors; common practice).
 MPS_DRIFT_TOLERANCE = 1e-4
 #: Observables of the exact evolution that the MPS backend does not compute.
