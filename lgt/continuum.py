@@ -13,10 +13,16 @@ to the mass cancels). Measured at each (x, N), N = number of staggered sites:
   ``bulk_fraction`` of the chain to keep the open ends out (Bañuls et al., PRD 93, 094512 (2016)
   use the same lattice operator).
 
-Extrapolations, in this order: N → ∞ at fixed x ((M/g)²: a + b/N², the relativistic
-dispersion E² = M² + k² of a particle in a box of length L ∝ N, lowest k ∝ 1/L; Σ: a + b/N;
-ω: the slope of E₀ against N, which removes the surface energy), then x → ∞ by a least-squares polynomial in 1/√x (degree ``x_degree``,
-weighted by the N-extrapolation errors). Uncertainties are the fits' standard errors
+Extrapolations, in this order. N → ∞ at fixed x: M/g from the lowest level of a relativistic
+particle in a box, (E/g)² = (M/g)² + (π √x / (N + δ))² (box length (N + δ) a, lowest momentum
+π/L; M and δ fitted — for the massless model the meson is exactly a free boson, Coleman, Jackiw
+& Susskind, Ann. Phys. 93, 267 (1975)); Σ: the value at the largest N, with the change from
+the next-largest N as its error (the bulk average converges exponentially; common practice,
+no source); ω: the slope of E₀ against N, which removes the surface energy. Then x → ∞ by a
+least-squares polynomial (degree ``x_degree``, weighted by the N-extrapolation errors) in
+1/x for M/g (the mass shift removes the O(a) term) and ω (the electric and mass energies per
+site enter ω = E₀/(2Nx) divided by x; the free-fermion part is exactly −1/π at every x), and
+in 1/√x = ga for Σ. Uncertainties are the fits' standard errors
 (covariance of the least-squares coefficients); they do not include the window truncation d
 or the DMRG truncation, which are reported per point.
 
@@ -180,14 +186,34 @@ def extrapolate_volume(points: list[dict[str, float]]) -> dict[str, float]:
     """N → ∞ at one x: M/g in 1/N², Σ/g in 1/N, ω from the slope of E₀ against N."""
     N = np.array([p["sites"] for p in points], float)
     x = points[0]["x"]
-    M2, dM2 = extrapolate(1.0 / N ** 2, [p["meson_mass"] ** 2 for p in points], 1)
-    M = float(np.sqrt(max(M2, 0.0)))
-    dM = float(dM2 / (2 * M)) if M > 0 else float("nan")
-    S, dS = extrapolate(1.0 / N, [p["condensate"] for p in points], 1)
+    M, dM = box_mass(N, np.array([p["meson_mass"] for p in points]), x)
+    order = np.argsort(N)
+    cond = np.array([p["condensate"] for p in points])[order]
+    S, dS = float(cond[-1]), float(abs(cond[-1] - cond[-2]))
     coef, cov = weighted_fit(N, [p["E0"] for p in points], 1)
     w, dw = coef[1] / (2 * x), np.sqrt(cov[1, 1]) / (2 * x) if np.isfinite(cov[1, 1]) else np.nan
     return {"x": x, "meson_mass": M, "meson_mass_err": dM, "condensate": S, "condensate_err": dS,
             "energy_density": float(w), "energy_density_err": float(dw)}
+
+
+def box_mass(N: np.ndarray, mass: np.ndarray, x: float) -> tuple[float, float]:
+    """Fit (M_N/g)² = (M/g)² + (π √x / (N + δ))²; returns M/g and its standard error (NaN without spare points)."""
+    from scipy.optimize import least_squares
+
+    def residual(p: np.ndarray) -> np.ndarray:
+        return np.sqrt(p[0] ** 2 + np.pi ** 2 * x / (N + p[1]) ** 2) - mass
+
+    fit = least_squares(residual, [float(mass.min()), 1.0])
+    dof = len(N) - 2
+    if dof <= 0:
+        return float(abs(fit.x[0])), float("nan")
+    J = fit.jac
+    cov = np.linalg.pinv(J.T @ J) * float(np.sum(fit.fun ** 2)) / dof
+    return float(abs(fit.x[0])), float(np.sqrt(cov[0, 0]))
+
+
+#: Variable of the x → ∞ fit per quantity (see the module docstring).
+SPACING_POWER = {"meson_mass": 1.0, "energy_density": 1.0, "condensate": 0.5}
 
 
 def _sigma(errors: np.ndarray) -> np.ndarray | None:
@@ -199,10 +225,10 @@ def _sigma(errors: np.ndarray) -> np.ndarray | None:
 
 
 def extrapolate_spacing(per_x: list[dict[str, float]], degree: int) -> dict[str, float]:
-    """x → ∞: polynomial in 1/√x through the N-extrapolated values."""
-    u = 1.0 / np.sqrt([p["x"] for p in per_x])
+    """x → ∞: polynomial in x^(−power) (:data:`SPACING_POWER`) through the N-extrapolated values."""
     out = {}
-    for name in ("meson_mass", "energy_density", "condensate"):
+    for name, power in SPACING_POWER.items():
+        u = np.asarray([p["x"] for p in per_x], float) ** -power
         y = [p[name] for p in per_x]
         val, err = extrapolate(u, y, degree, _sigma([p[name + "_err"] for p in per_x]))
         out[name], out[name + "_err"] = val, err
@@ -247,7 +273,7 @@ def run_continuum(resolved: Mapping[str, Any], progress: bool = False) -> RunRes
 
 
 def plot_continuum(result: RunResult, path: str) -> None:
-    """Three panels (M/g, ω, Σ/g) against 1/√x: points per N, N → ∞ values, fit and a → 0 value."""
+    """Three panels (M/g, ω, Σ/g) against their fit variable: points per N, N → ∞ values, fit, a → 0 value."""
     import matplotlib
 
     matplotlib.use("Agg")
@@ -260,9 +286,10 @@ def plot_continuum(result: RunResult, path: str) -> None:
             "energy_density": result.attributes.get("reference_energy_density"),
             "condensate": result.attributes.get("reference_condensate")}
     labels = {"meson_mass": "M / g", "energy_density": "E₀ / (2Nx)", "condensate": "Σ / g"}
-    u = 1.0 / np.sqrt(per_x["x"])
     for ax, name in zip(axes, labels):
-        ax.plot(1.0 / np.sqrt(pts["x"]), pts[name], ".", color="0.6", label="finite N")
+        power = SPACING_POWER[name]
+        u = per_x["x"] ** -power
+        ax.plot(pts["x"] ** -power, pts[name], ".", color="0.6", label="finite N")
         ax.errorbar(u, per_x[name], yerr=np.nan_to_num(per_x[name + "_err"]), fmt="o", label="N → ∞")
         coef, _ = weighted_fit(u, per_x[name], degree, _sigma(per_x[name + "_err"]))
         grid = np.linspace(0, u.max() * 1.05, 50)
@@ -270,7 +297,7 @@ def plot_continuum(result: RunResult, path: str) -> None:
         ax.errorbar([0], fin[name], yerr=np.nan_to_num(fin[name + "_err"]), fmt="s", color="k", label="a → 0")
         if refs[name] is not None:
             ax.axhline(refs[name], ls="--", color="r", lw=0.8, label="continuum value")
-        ax.set_xlabel("1/√x = g a")
+        ax.set_xlabel("1/x = (ga)²" if power == 1.0 else "1/√x = ga")
         ax.set_ylabel(labels[name])
     axes[0].legend(fontsize=7)
     fig.tight_layout()
@@ -324,5 +351,5 @@ if __name__ == "__main__":  # pragma: no cover
 
 __all__ = ["lattice_mass", "dimensionless_params", "sites_for_volume", "condensate", "weighted_fit",
            "extrapolate", "resolve_continuum", "run_continuum", "plot_continuum", "measure_point",
-           "extrapolate_volume", "extrapolate_spacing", "SCHWINGER_BOSON_MASS", "MASSLESS_CONDENSATE",
+           "extrapolate_volume", "extrapolate_spacing", "box_mass", "SPACING_POWER", "SCHWINGER_BOSON_MASS", "MASSLESS_CONDENSATE",
            "CONTINUUM_KEYS"]
