@@ -47,8 +47,8 @@ from lgt.results import RunResult, Table
 
 CONTINUUM_KEYS = ("x", "volumes", "sites", "mass_over_g", "mass_shift", "levels", "bond_dimension",
                   "bulk_fraction", "x_degree")
-DEFAULTS: dict[str, Any] = {"x": [9.0, 16.0, 25.0, 36.0], "volumes": [8.0, 10.0, 12.0], "mass_over_g": 0.0,
-                            "mass_shift": True, "levels": 5, "bond_dimension": 64, "bulk_fraction": 0.5,
+DEFAULTS: dict[str, Any] = {"x": [4.0, 9.0, 16.0], "volumes": [6.0, 8.0, 10.0], "mass_over_g": 0.0,
+                            "mass_shift": True, "levels": 5, "bond_dimension": 40, "bulk_fraction": 0.5,
                             "x_degree": 1}
 #: Continuum values of the massless model, for reports and tests.
 SCHWINGER_BOSON_MASS = 1.0 / np.sqrt(np.pi)  # Schwinger, Phys. Rev. 128, 2425 (1962)
