@@ -16,13 +16,13 @@ Only :mod:`lgt.mps.dmrg` needs physics-tenpy; time evolution is numpy/scipy.
 
 from __future__ import annotations
 
-from lgt.errors import InputError
+from lgt.errors import ConfigError
 
 
-def require_tenpy():
-    """Import physics-tenpy or raise InputError with the install hint."""
+def require_tenpy(key: str = "method"):
+    """Import physics-tenpy or raise ConfigError(key, "mps", install hint) (exit status 2)."""
     try:
         import tenpy
     except ImportError:  # pragma: no cover - depends on the environment
-        raise InputError("method = \"mps\"", "needs physics-tenpy: pip install fluxline[mps]") from None
+        raise ConfigError(key, "mps", "needs physics-tenpy: pip install fluxline[mps]") from None
     return tenpy

@@ -212,6 +212,7 @@ def resolve_solver(section: Mapping[str, Any], prefix: str) -> dict[str, Any]:
                               "only applies with method = \"mps\"")
         return {}
     chi = as_int(section.get("bond_dimension", DEFAULT_DMRG_CHI), f"{prefix}.bond_dimension", minimum=2)
+    require_tenpy(f"{prefix}.method")  # before any work
     return {"method": "mps", "bond_dimension": chi}
 
 

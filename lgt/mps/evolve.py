@@ -117,7 +117,10 @@ def trotter_steps(times: np.ndarray, max_step: float) -> int:
 def initial_mps(params: ModelParams, initial: Mapping[str, Any], chi: int) -> ChainMPS:
     """The initial state: a product state of the field pattern, or the DMRG ground state."""
     if initial["kind"] == "ground":
+        from lgt.mps import require_tenpy
         from lgt.mps.dmrg import ground_state
+
+        require_tenpy("initial.kind")  # the DMRG start needs physics-tenpy
 
         return ground_state(quench_params(params, initial), chi=max(chi, 32))[1]
     levels = np.rint(initial_fields(params, initial) + params.spin).astype(int)
