@@ -36,7 +36,10 @@ from lgt.results import RunResult, TimeSeries
 from lgt.states import prepare_initial_state
 
 EVOLUTION_KEYS = ("t_final", "dt", "times", "cut", "observables", "drift_tolerance", "memory_limit_gb",
-                  "method", "entropy_stride")
+                  "method", "entropy_stride", "bond_dimension", "truncation", "max_step", "trotter_order",
+                  "max_discarded_weight")
+#: Methods of ``[evolution] method``: the exact propagators, or "mps" (tensor networks, lgt.mps.evolve).
+EVOLUTION_METHODS = METHODS + ("mps",)
 DEFAULT_DRIFT_TOLERANCE = 1e-8
 #: Most stored times a run may ask for.
 MAX_STORED_TIMES = 1_000_000
@@ -121,17 +124,25 @@ def validate_evolution_config(config: Mapping[str, Any]) -> EvolutionConfig:
                               f"unknown observable; known: {', '.join(OBSERVABLES)}")
     tol = as_float(section.get("drift_tolerance", DEFAULT_DRIFT_TOLERANCE),
                    "evolution.drift_tolerance", positive=True, maximum=1.0)
-    method = as_choice(section.get("method", METHODS[0]), "evolution.method", METHODS)
+    method = as_choice(section.get("method", METHODS[0]), "evolution.method", EVOLUTION_METHODS)
     stride = section.get("entropy_stride", "auto")
     if stride != "auto":
         stride = as_int(stride, "evolution.entropy_stride", minimum=1, maximum=MAX_STORED_TIMES)
     gb = None
     if "memory_limit_gb" in section:
         gb = as_float(section["memory_limit_gb"], "evolution.memory_limit_gb", positive=True)
-    guard_memory(params, "evolve", limit_bytes=None if gb is None else int(gb * 2 ** 30),
-                 limit_key="[evolution] memory_limit_gb")
+    limit = None if gb is None else int(gb * 2 ** 30)
+    mps = None
+    if method == "mps":  # MPS keys, memory and time estimate: lgt.mps.evolve
+        from lgt.mps.evolve import resolve_mps_evolution
+
+        mps = resolve_mps_evolution(section, params, limit)
+        tol = mps.pop("drift_tolerance", tol)
+        observables = mps.pop("observables", observables)
+    else:
+        guard_memory(params, "evolve", limit_bytes=limit, limit_key="[evolution] memory_limit_gb")
     return EvolutionConfig(params, initial, tuple(float(t) for t in times), cut,
-                           tuple(dict.fromkeys(observables)), tol, method, gb, stride)
+                           tuple(dict.fromkeys(observables)), tol, method, gb, stride, mps)
 
 
 # ---------------------------------------------------------------------- propagation
@@ -183,6 +194,10 @@ def run_evolution(config: Mapping[str, Any], progress: bool = False,
         energy_drift (max |E(t) − E(0)| / max(|E(0)|, 1)), norm_drift (max |‖ψ‖² − 1|).
     """
     resolved = validate_evolution_config(config)  # idempotent on resolved configs
+    if resolved.method == "mps":
+        from lgt.mps.evolve import run_mps_evolution
+
+        return run_mps_evolution(resolved, progress=progress, callback=callback)
     params = resolved.model
     ev = resolved["evolution"]
     times = np.asarray(ev["times"], dtype=float)

@@ -34,26 +34,30 @@ class ResolvedConfig(Mapping):
 
 @dataclass(frozen=True, eq=True)
 class SpectrumConfig(ResolvedConfig):
-    """Task ``spectrum``: the model and how many levels (``count`` ≥ 1)."""
+    """Task ``spectrum``: the model, how many levels (``count`` ≥ 1) and the solver (empty: exact
+    diagonalization; ``{"method": "mps", "bond_dimension": χ}``: DMRG, :mod:`lgt.mps.dmrg`)."""
 
     model: ModelParams
     count: int = 6
+    solver: Mapping[str, Any] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
-        return {"model": self.model.to_dict(), "spectrum": {"count": self.count}}
+        return {"model": self.model.to_dict(), "spectrum": {"count": self.count, **self.solver}}
 
 
 @dataclass(frozen=True, eq=True)
 class PotentialConfig(ResolvedConfig):
-    """Task ``potential``: odd charge separations r (sorted, distinct) and meson masses wanted."""
+    """Task ``potential``: odd charge separations r (sorted, distinct), meson masses wanted and
+    the solver (as for :class:`SpectrumConfig`)."""
 
     model: ModelParams
     distances: tuple[int, ...]
     masses: int = 3
+    solver: Mapping[str, Any] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
         return {"model": self.model.to_dict(),
-                "potential": {"distances": list(self.distances), "masses": self.masses}}
+                "potential": {"distances": list(self.distances), "masses": self.masses, **self.solver}}
 
 
 @dataclass(frozen=True, eq=True)
@@ -61,7 +65,8 @@ class EvolutionConfig(ResolvedConfig):
     """Task ``evolve``: model, canonical ``[initial]`` (see :func:`lgt.states.resolve_initial`),
     stored times (lattice units), entanglement cut, observables, drift tolerance, propagator,
     the memory limit given (GiB, or None for the memory available) and the entropies' stride
-    (``"auto"`` or a number of stored times)."""
+    (``"auto"`` or a number of stored times); ``mps``: the tensor-network settings of
+    ``method = "mps"`` (:func:`lgt.mps.evolve.resolve_mps_evolution`), else None."""
 
     model: ModelParams
     initial: Mapping[str, Any]
@@ -72,6 +77,7 @@ class EvolutionConfig(ResolvedConfig):
     method: str
     memory_limit_gb: float | None = None
     entropy_stride: int | str = "auto"
+    mps: Mapping[str, Any] | None = None
 
     def with_observables(self, names: tuple[str, ...] | list[str]) -> "EvolutionConfig":
         """A copy that also measures ``names`` (known observable names; order kept, no repeats)."""
@@ -86,7 +92,7 @@ class EvolutionConfig(ResolvedConfig):
         ev: dict[str, Any] = {"times": list(self.times), "cut": self.cut,
                               "observables": list(self.observables),
                               "drift_tolerance": self.drift_tolerance, "method": self.method,
-                              "entropy_stride": self.entropy_stride}
+                              "entropy_stride": self.entropy_stride, **(self.mps or {})}
         if self.memory_limit_gb is not None:
             ev["memory_limit_gb"] = self.memory_limit_gb
         return {"model": self.model.to_dict(), "initial": _plain(self.initial), "evolution": ev}

@@ -30,7 +30,7 @@ from lgt.resolved import PotentialConfig
 from lgt.results import RunResult
 from lgt.spectrum import gaps, lowest_levels
 
-POTENTIAL_KEYS = ("distances", "masses")
+POTENTIAL_KEYS = ("distances", "masses", "method", "bond_dimension")  # method = "mps": lgt.mps.dmrg
 #: Most meson masses (gaps) a potential run may request.
 MAX_MASSES = 1000
 #: Fraction of the initial slope below which the potential counts as saturated.
@@ -97,10 +97,12 @@ def fit_string(distances: Sequence[int], potential: Sequence[float]) -> dict[str
 
 
 def static_potential(params: ModelParams, distances: Sequence[int], masses: int = 3,
-                     progress: Callable[[], None] | None = None) -> dict[str, Any]:
+                     progress: Callable[[], None] | None = None, method: str = "exact",
+                     bond_dimension: int = 128) -> dict[str, Any]:
     """V(r) for each distance, meson masses, string tension and breaking-distance estimates.
 
     ``progress`` is called after each of the len(distances) + 2 ground-state / spectrum solves.
+    ``method = "mps"``: every energy by DMRG (:mod:`lgt.mps.dmrg`, bond dimension cap).
 
     Raises
     ------
@@ -115,14 +117,21 @@ def static_potential(params: ModelParams, distances: Sequence[int], masses: int 
     rs = sorted({int(r) for r in distances})
     placements = [static_pair_sites(params.sites, r) for r in rs]
     masses = int(masses)
+    energy, spectrum_gaps = ground_energy, meson_masses
+    if method == "mps":  # DMRG energies (lgt.mps.dmrg)
+        from functools import partial
+
+        from lgt.mps import dmrg
+        energy = partial(dmrg.ground_energy, chi=bond_dimension)
+        spectrum_gaps = partial(dmrg.meson_masses, chi=bond_dimension)
     tick = progress or (lambda: None)
-    e_vacuum = ground_energy(params)
+    e_vacuum = energy(params)
     tick()
     V = []
     for model in pair_models(params, rs):
-        V.append(ground_energy(model) - e_vacuum)
+        V.append(energy(model) - e_vacuum)
         tick()
-    m = meson_masses(params, masses)
+    m = spectrum_gaps(params, masses)
     tick()
     fit = fit_string(rs, V)
     threshold = None
@@ -175,8 +184,12 @@ def resolve_potential(config: Mapping[str, Any], distances: Sequence[int] | None
         rs.append(r)
     masses = as_int(section.get("masses", 3), "potential.masses", minimum=1, maximum=MAX_MASSES)
     rs = sorted(set(rs))
-    guard_memory(params, "potential", stored_vectors=max(20, 2 * masses + 3), variants=pair_models(params, rs))
-    return PotentialConfig(params, tuple(rs), masses)
+    from lgt.mps.dmrg import resolve_solver
+
+    solver = resolve_solver(section, "potential")
+    if not solver:  # exact diagonalization: every pair model's subspace must fit in memory
+        guard_memory(params, "potential", stored_vectors=max(20, 2 * masses + 3), variants=pair_models(params, rs))
+    return PotentialConfig(params, tuple(rs), masses, solver)
 
 
 def validate_potential(config: Mapping[str, Any]) -> PotentialConfig:
@@ -203,7 +216,7 @@ def run_potential(resolved: PotentialConfig, progress: bool = False) -> RunResul
         bar = tqdm(total=len(resolved.distances) + 2, desc="potential", unit="solve", file=sys.stderr)
     try:
         out = static_potential(resolved.model, list(resolved.distances), resolved.masses,
-                               progress=bar.update if bar is not None else None)
+                               progress=bar.update if bar is not None else None, **resolved.solver)
     finally:
         if bar is not None:
             bar.close()

@@ -94,6 +94,7 @@ TASKS: dict[str, Task] = {t.name: t for t in (
     Task("fit", _MODEL_RUN, ("model",), "lgt.variational.workflow", "validate_variational_config", "run_fit"),
     Task("size", _MODEL_RUN, ("model",), "lgt.variational.workflow", "validate_variational_config",
          "run_size"),
+    Task("continuum", ("continuum",), ("continuum",), "lgt.continuum", "resolve_continuum", "run_continuum"),
 )}
 
 #: Sections that are not task input, with the reason they are refused in a run config.
@@ -175,7 +176,7 @@ def _section_summary(value: Any) -> Any:
 
 
 # ------------------------------------------------------------------------ the spectrum task
-SPECTRUM_KEYS = ("count",)
+SPECTRUM_KEYS = ("count", "method", "bond_dimension")  # method = "mps": lgt.mps.dmrg
 #: Most levels a spectrum run may request (Lanczos on more is a dense problem anyway).
 MAX_SPECTRUM_COUNT = 10_000
 
@@ -190,8 +191,12 @@ def validate_spectrum(config: Mapping[str, Any]) -> SpectrumConfig:
     section = table(config, "spectrum")
     check_keys(section, SPECTRUM_KEYS, "spectrum")
     count = as_int(section.get("count", 6), "spectrum.count", minimum=1, maximum=MAX_SPECTRUM_COUNT)
-    guard_memory(model, "spectrum", stored_vectors=max(20, 2 * count + 1))
-    return SpectrumConfig(model, count)
+    from lgt.mps.dmrg import resolve_solver
+
+    solver = resolve_solver(section, "spectrum")
+    if not solver:  # exact diagonalization: the physical subspace must fit in memory
+        guard_memory(model, "spectrum", stored_vectors=max(20, 2 * count + 1))
+    return SpectrumConfig(model, count, solver)
 
 
 def run_spectrum(resolved: SpectrumConfig, progress: bool = False) -> RunResult:
@@ -206,6 +211,9 @@ def run_spectrum(resolved: SpectrumConfig, progress: bool = False) -> RunResult:
     from lgt.hamiltonian import build_hamiltonian
     from lgt.spectrum import lowest_levels
 
+    if resolved["spectrum"].get("method") == "mps":  # DMRG on long chains
+        from lgt.mps.dmrg import run_spectrum_task
+        return run_spectrum_task(resolved)
     t0 = time.perf_counter()
     basis = PhysicalBasis(resolved.model)
     hamiltonian = build_hamiltonian(basis)

@@ -29,6 +29,8 @@ def _run(args: argparse.Namespace) -> int:
             out[k] = np.asarray(series.values).tolist()
             if not np.array_equal(series.times, times):  # entropies at their own stride
                 out[f"{k}_times"] = series.times.tolist()
+        out.update({k: np.asarray(result.series[k].values).tolist()  # MPS runs (lgt.mps.evolve)
+                    for k in ("bond_dimension", "discarded_weight") if k in result.series})
         print(json.dumps(out))
         return 0
     a = result.attributes

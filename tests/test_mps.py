@@ -1,0 +1,304 @@
+"""MPS backend (lgt.mps): MPO, gate evolution and DMRG against exact diagonalization.
+
+External references named beside each check. The exact evolution and spectrum of this project
+(Gauss-law subspace, scipy sparse) are the reference for the MPS results; they are themselves
+checked against independent formulations in test_formulations.py.
+"""
+
+from __future__ import annotations
+
+import json
+import warnings
+
+import numpy as np
+import pytest
+import scipy.linalg as sla
+from scipy.sparse.linalg import expm_multiply
+
+from lgt.basis import PhysicalBasis
+from lgt.evolution import run_evolution
+from lgt.hamiltonian import build_hamiltonian, register_gauss_violation, register_hamiltonian
+from lgt.model import ModelParams
+from lgt.mps.chain import ChainMPS, Truncation
+from lgt.mps.mpo import hamiltonian_mpo, physical_projector_mpo
+from lgt.mps.tebd import GateEvolver, window_hamiltonians
+from lgt.spectrum import lowest_levels
+
+#: Observables both backends record.
+COMPARED = ("electric_field", "electric_field_squared", "occupation", "charge", "particle_density",
+            "string_length", "loschmidt_echo", "entanglement_entropy", "renyi2_entropy", "energy", "norm")
+
+MODELS = [
+    ModelParams(sites=6, hopping=0.7, mass=0.4, coupling=1.3, theta=0.9, static_charges=((1, -1), (4, 1))),
+    ModelParams(sites=4, levels=4, link="quantum-link", mass=-0.3, hopping=1.1),
+    ModelParams(sites=4, levels=5, hopping=0.5, mass=1.2, coupling=0.8, theta=-2.0),
+]
+
+
+# ---------------------------------------------------------------------- MPO (self-consistency)
+@pytest.mark.parametrize("params", MODELS)
+def test_mpo_equals_register_hamiltonian(params):
+    """MPO contracted to a dense matrix = the sum of the model's local terms on the register."""
+    dense = hamiltonian_mpo(params).to_dense()
+    ref = register_hamiltonian(params, physical_only=False).toarray()
+    assert np.abs(dense - ref).max() < 1e-12
+
+
+@pytest.mark.parametrize("params", MODELS)
+def test_projector_mpo_and_penalty(params):
+    """Projector MPO = indicator of the Gauss-law subspace; the penalty leaves P H P unchanged."""
+    P = physical_projector_mpo(params).to_dense()
+    phys = ~register_gauss_violation(params)
+    assert np.array_equal(P, np.diag(phys.astype(float)))
+    H = hamiltonian_mpo(params).to_dense()
+    Hp = hamiltonian_mpo(params, penalty=5.0, constant=-2.0).to_dense()
+    diff = Hp - H + 2.0 * np.eye(len(phys))
+    assert np.abs(diff[np.ix_(phys, phys)]).max() < 1e-12  # zero on the physical subspace
+    assert np.all(np.diag(diff)[~phys] >= 5.0 - 1e-12)     # ≥ λ on every unphysical state
+
+
+@pytest.mark.parametrize("params", [MODELS[0], ModelParams(sites=6, levels=5, mass=1.2, theta=-2.0)])
+def test_gate_windows_sum_to_hamiltonian(params):
+    K, d = params.n_links, params.levels
+    total = sum(np.kron(np.kron(np.eye(d ** s), h), np.eye(d ** (K - 3 - s)))
+                for s, h in enumerate(window_hamiltonians(params)))
+    assert np.abs(total - register_hamiltonian(params, physical_only=False).toarray()).max() < 1e-12
+
+
+def test_fourth_order_gates_converge_to_exact_propagator():
+    """Suzuki's fourth-order product (Suzuki 1990): error falls by ~2^4 when the step halves."""
+    params = ModelParams(sites=8, hopping=1.0, mass=0.5, theta=0.7)
+    H = register_hamiltonian(params, physical_only=False)
+    levels = np.array([1, 1, 2, 2, 2, 1, 1])  # meson: L = 1 on links 2..4
+    psi0 = ChainMPS.product(levels, 3)
+    exact = expm_multiply(-2j * H, psi0.to_dense())
+    errors = []
+    for step in (0.2, 0.1):
+        psi = psi0.copy()
+        GateEvolver(params, Truncation(400), order=4, max_step=step).evolve(psi, 2.0)
+        errors.append(np.linalg.norm(psi.to_dense() - exact))
+    assert errors[1] < errors[0] / 10
+
+
+# ---------------------------------------------------------------------- evolution vs exact
+def scenarios(N: int) -> dict:
+    base = {"sites": N, "hopping": 1.0, "mass": 0.5, "coupling": 1.0}
+    return {
+        "vacuum": (base, {"kind": "vacuum"}),
+        "meson": (base, {"kind": "meson", "sites": [N // 2 - 2, N // 2 + 1]}),
+        "string": ({**base, "theta": 0.8, "static_charges": [[2, 1], [N - 3, -1]]}, {"kind": "string"}),
+    }
+
+
+def compare(model, initial, t_final, chi, **mps_keys):
+    ev = {"t_final": t_final, "dt": 0.1}
+    exact = run_evolution({"model": model, "initial": initial, "evolution": ev})
+    mps = run_evolution({"model": model, "initial": initial,
+                         "evolution": {**ev, "method": "mps", "bond_dimension": chi, **mps_keys}})
+    errors = {k: float(np.max(np.abs(np.asarray(mps.series[k].values) - np.asarray(exact.series[k].values))))
+              for k in COMPARED}
+    echo = np.asarray(exact.series["loschmidt_echo"].values)
+    rate = np.abs(np.asarray(mps.series["loschmidt_rate"].values) - np.asarray(exact.series["loschmidt_rate"].values))
+    # the rate −ln(echo)/N turns an absolute echo error δ into δ/(N·echo): compare where echo > 1e-2
+    errors["loschmidt_rate"] = float(rate[echo > 1e-2].max())
+    return errors, exact, mps
+
+
+@pytest.mark.parametrize("name", ["vacuum", "meson", "string"])
+def test_mps_matches_exact_small(name):
+    """Every observable within 1e-4 of exact evolution at N = 10, t = 2, default bond dimension."""
+    model, initial = scenarios(10)[name]
+    errors, _, mps = compare(model, initial, 2.0, 64)
+    assert max(errors.values()) < 1e-4, errors
+    assert not mps.attributes["flag_discarded_weight"] and not mps.attributes["flag_energy_drift"]
+    profile = np.asarray(mps.series["entanglement_profile"].values)
+    assert profile.shape == (21, 8)
+
+
+def test_error_shrinks_with_bond_dimension():
+    model, initial = scenarios(12)["meson"]
+    worst = []
+    for chi in (4, 8, 16):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            errors, _, _ = compare(model, initial, 2.0, chi)
+        worst.append(errors["electric_field"])
+    assert worst[0] > worst[1] > worst[2]
+
+
+def test_small_bond_dimension_is_flagged(tmp_path):
+    """A run whose bond dimension is too small warns and carries the flag into the HDF5 file."""
+    import h5py
+
+    from lgt.io import write_run_file
+
+    model, initial = scenarios(12)["vacuum"]
+    cfg = {"model": model, "initial": initial,
+           "evolution": {"t_final": 2.0, "dt": 0.5, "method": "mps", "bond_dimension": 3}}
+    with pytest.warns(RuntimeWarning, match="not converged"):
+        result = run_evolution(cfg)
+    assert result.attributes["flag_discarded_weight"]
+    assert result.attributes["discarded_weight"] > 1e-6
+    path = tmp_path / "run.h5"
+    write_run_file(path, result)
+    with h5py.File(path) as f:
+        assert bool(f.attrs["result.flag_discarded_weight"])
+        assert f["observables/discarded_weight/value"].shape == (5,)
+
+
+def test_evolve_json_carries_mps_diagnostics(tmp_path, capsys):
+    from lgt.cli import main
+
+    path = tmp_path / "q.toml"
+    path.write_text('[model]\nsites = 8\nmass = 0.5\n[initial]\nkind = "meson"\nsites = [2, 5]\n'
+                    '[evolution]\nt_final = 0.5\ndt = 0.25\nmethod = "mps"\nbond_dimension = 16\n')
+    assert main(["evolve", str(path), "--json", "--quiet"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert len(out["bond_dimension"]) == 3 and out["bond_dimension"][0] == 1
+    assert len(out["discarded_weight"]) == 3
+
+
+@pytest.mark.parametrize("key,value", [("bond_dimension", 0), ("truncation", 1.5), ("trotter_order", 3),
+                                       ("max_step", -0.1), ("observables", ["charge_correlation"])])
+def test_bad_mps_keys_are_named(key, value):
+    from lgt.errors import ConfigError
+
+    cfg = {"model": {"sites": 8}, "evolution": {"t_final": 1.0, "dt": 0.5, "method": "mps", key: value}}
+    with pytest.raises(ConfigError) as info:
+        run_evolution(cfg)
+    assert key in str(info.value)
+
+
+def test_memory_guard_refuses_before_work():
+    from lgt.errors import ResourceError
+
+    cfg = {"model": {"sites": 200, "levels": 7}, "evolution": {"t_final": 1.0, "dt": 0.5, "method": "mps",
+                                                                "bond_dimension": 4000, "memory_limit_gb": 1}}
+    with pytest.raises(ResourceError, match="bond_dimension"):
+        run_evolution(cfg)
+
+
+# ---------------------------------------------------------------------- free fermions
+def free_fermion_occupations(N: int, w: float, m: float, t: float) -> np.ndarray:
+    """n_i(t) from C(t) = e^{−iht} C(0) e^{iht} (textbook free-fermion result), bare vacuum C(0).
+
+    h: single-particle hopping w between neighbours and staggered mass m(−1)^n (the Jordan–Wigner
+    string of nearest-neighbour hopping on an open chain is trivial).
+    """
+    h = np.diag(m * (-1.0) ** np.arange(N)) + w * (np.eye(N, k=1) + np.eye(N, k=-1))
+    C0 = np.diag((np.arange(N) % 2).astype(float))  # odd sites filled
+    U = sla.expm(-1j * h * t)
+    C = U @ C0 @ U.conj().T
+    return np.real(np.diag(C))
+
+
+def free_fermion_check(N: int, levels: int, t_final: float, chi: int) -> None:
+    """J = 0 and a window too wide to be reached: the gauge field is a spectator of free fermions.
+
+    With J = 0 the link formulation is exactly free fermions only while no link reaches the
+    window edge ±S (a hop that would leave the window is blocked); the weight on the edge levels
+    is measured and bounds the deviation.
+    """
+    model = {"sites": N, "hopping": 0.5, "mass": 1.0, "coupling": 0.0, "levels": levels}
+    cfg = {"model": model, "initial": {"kind": "vacuum"},
+           "evolution": {"t_final": t_final, "dt": t_final / 4, "method": "mps", "bond_dimension": chi,
+                         "observables": ["occupation", "electric_field_squared"]}}
+    result = run_evolution(cfg)
+    occ = np.asarray(result.series["occupation"].values)
+    S = (levels - 1) / 2
+    # ⟨L²⟩ ≥ S² · P(|L| = S): the edge weight stays tiny
+    edge = np.asarray(result.series["electric_field_squared"].values).max() / S ** 2
+    assert edge < 0.05
+    for i, t in enumerate(result.series["occupation"].times):
+        ref = free_fermion_occupations(N, 0.5, 1.0, t)
+        assert np.abs(occ[i] - ref).max() < 1e-4
+
+
+def test_free_fermions_small():
+    free_fermion_check(24, 5, 2.0, 32)
+
+
+@pytest.mark.slow
+def test_free_fermions_sixty_sites():
+    free_fermion_check(60, 5, 3.0, 64)
+
+
+# ---------------------------------------------------------------------- DMRG
+def exact_levels(params: ModelParams, count: int) -> np.ndarray:
+    return np.sort(lowest_levels(build_hamiltonian(PhysicalBasis(params)), count))
+
+
+def dmrg_check(params: ModelParams, count: int, chi: int) -> None:
+    pytest.importorskip("tenpy")
+    from lgt.mps.dmrg import lowest_states
+
+    res = lowest_states(params, count, chi)
+    exact = exact_levels(params, count)
+    assert abs(res.energies[0] - exact[0]) < 1e-8
+    assert np.abs(np.sort(res.energies) - exact).max() < 1e-6
+    assert max(res.leakage) < 1e-6
+
+
+def test_dmrg_ground_and_excited_small():
+    dmrg_check(ModelParams(sites=8, hopping=1.0, mass=0.3, coupling=1.2, theta=0.5,
+                           static_charges=((2, 1), (5, -1))), 3, 48)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("params", [
+    ModelParams(sites=20, hopping=1.0, mass=0.5),
+    pytest.param(ModelParams(sites=16, hopping=0.8, mass=0.2, theta=2.0, static_charges=((4, 1), (11, -1))),
+                 marks=pytest.mark.xfail(reason="levels 1 and 2 are split by 1.7e-4: orthogonal DMRG stops at "
+                                                "max_sweeps with a mixture (each off by 4.8e-5, their sum exact "
+                                                "to 1e-9); known limitation, docs/mps.md", strict=False))])
+def test_dmrg_matches_exact_large(params):
+    dmrg_check(params, 4, 128)
+
+
+def test_quench_from_dmrg_ground_state():
+    """``[initial] kind = "ground"`` with method = "mps" (DMRG start) matches the exact quench."""
+    pytest.importorskip("tenpy")
+    model = {"sites": 10, "hopping": 1.0, "mass": 0.6}
+    initial = {"kind": "ground", "model": {"mass": 2.0}}
+    errors, _, _ = compare(model, initial, 1.0, 64)
+    assert max(errors.values()) < 1e-4, errors
+
+
+# ---------------------------------------------------------------------- long-chain checks
+@pytest.mark.slow
+@pytest.mark.parametrize("name", ["vacuum", "meson", "string"])
+def test_mps_matches_exact_sixteen_sites(name):
+    """N = 16, d = 3, t = 5 at the default bond dimension; the error shrinks as χ grows."""
+    model, initial = scenarios(16)[name]
+    errors, _, _ = compare(model, initial, 5.0, 64)
+    assert max(errors.values()) < 1e-4, errors
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        small, _, _ = compare(model, initial, 5.0, 16)
+    assert small["electric_field"] > errors["electric_field"]
+
+
+def test_spectrum_task_with_dmrg():
+    """``[spectrum] method = "mps"`` through the task registry equals the exact levels."""
+    pytest.importorskip("tenpy")
+    from lgt.tasks import get_task
+
+    task = get_task("spectrum")
+    config = {"model": {"sites": 8, "mass": 0.4, "theta": 1.0}, "spectrum": {"count": 2, "method": "mps",
+                                                                              "bond_dimension": 32}}
+    result = task.run(task.validate(config))
+    exact = exact_levels(ModelParams(sites=8, mass=0.4, theta=1.0), 2)
+    assert np.abs(result.arrays["energies"] - exact).max() < 1e-8
+
+
+def test_tenpy_round_trip():
+    """ChainMPS → tenpy MPS (canonical: tenpy's own norm test) → ChainMPS keeps the state."""
+    pytest.importorskip("tenpy")
+    from lgt.mps.dmrg import from_tenpy, mps_to_tenpy, tenpy_sites
+
+    params = ModelParams(sites=6, mass=0.5)
+    psi = ChainMPS.product(np.array([1, 1, 2, 2, 1]), 3)
+    GateEvolver(params, Truncation(50)).evolve(psi, 1.0)
+    converted = mps_to_tenpy(psi, tenpy_sites(params))
+    assert np.max(converted.norm_test()) < 1e-12
+    assert abs(np.vdot(psi.to_dense(), from_tenpy(converted).to_dense())) == pytest.approx(1.0, abs=1e-12)
