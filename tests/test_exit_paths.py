@@ -175,7 +175,7 @@ def test_sections_a_task_does_not_read_are_refused(tmp_path, capsys, command, te
 def test_task_table_is_the_one_place():
     from lgt.tasks import TASKS, get_task, known_sections, readers
 
-    assert set(TASKS) == {"spectrum", "potential", "evolve", "fit", "size"}
+    assert set(TASKS) == {"spectrum", "potential", "evolve", "fit", "size", "continuum"}
     assert readers("potential") == ("potential",) and "output" not in known_sections()
     for name in TASKS:  # every entry imports and resolves its functions
         validate, run = get_task(name)._functions()

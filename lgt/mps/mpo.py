@@ -145,15 +145,15 @@ def gauss_penalty_terms(params: ModelParams) -> list[tuple[tuple[int, ...], np.n
     Zero on the physical subspace, ≥ 1 on every other Gauss-law sector; it commutes with every
     local term (each preserves all sectors), so adding λ times it only lifts unphysical states.
     """
-    from lgt.hamiltonian import _local_levels, _site_occupation
+    from lgt.gauss import site_occupation
 
     K, d = params.n_links, params.levels
     out = []
     for site in range(params.sites):
         qudits = tuple(q for q in (site - 1, site) if 0 <= q < K)
-        cfg = _local_levels(d, len(qudits))
+        cfg = np.stack(np.unravel_index(np.arange(d ** len(qudits)), (d,) * len(qudits)), axis=1)
         col = {q: cfg[:, i] for i, q in enumerate(qudits)}
-        n = _site_occupation(params, site, col.get(site - 1), col.get(site))
+        n = site_occupation(params, site, col.get(site - 1), col.get(site))
         out.append((qudits, np.diag(((n != 0) & (n != 1)).astype(float))))
     return out
 
