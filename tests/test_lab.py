@@ -149,6 +149,19 @@ def test_analyze_reproduces_exact_observables_within_errors(tmp_path):
     plotted = run_cli("plot", str(tmp_path / "a.h5"), "--outdir", str(tmp_path / "replot"))
     assert plotted.returncode == 0, plotted.stderr
     assert len(list((tmp_path / "replot").glob("analyze_*.png"))) == 1 + PARAMS.n_links
+    # the file holds structure, not the report as JSON text; the report rebuilt from it is the --json one
+    from lgt.io import read_run_file
+    from lgt.lab.report import report_from_result
+
+    with h5py.File(tmp_path / "a.h5") as f:
+        assert not any("report_json" in key for key in f.attrs)
+        assert list(f["observables/particle_density/value"].attrs["kinds"]) == list(rep["particle_density"])
+    rebuilt = report_from_result(read_run_file(tmp_path / "a.h5"))
+    for key in ("task", "times", "shots", "discarded_fraction", "particle_density", "electric_field", "lab",
+                "measured"):
+        assert rebuilt[key] == rep[key], key
+    assert rebuilt["noise"] == {**rep["noise"], "noise_model": {
+        k: v for k, v in rep["noise"]["noise_model"].items() if v is not None}}  # null left out
 
 
 def test_hdf5_form_equals_csv_form(tmp_path):
