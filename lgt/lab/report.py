@@ -5,8 +5,8 @@ one :class:`~lgt.results.TimeSeries` whose values carry a trailing ``kind`` axis
 ``raw_error``, ``mitigated``, ``mitigated_error``, ``exact``, …, listed in ``kinds``); shots and
 discarded fraction are series; the per-time simulation record is the table ``simulation``;
 the metadata sections (``noise``, ``lab``, ``fit``, ``measured``) are attributes with dotted
-names (``noise.noise_model.name``; a ``null`` value is left out; list values are arrays of the
-same name). :func:`report_from_result` is the inverse (used by ``fluxline plot``).
+names (``noise.noise_model.name``; list values are arrays of the same name; the names of
+``null`` values are listed in the string array ``null_metadata``). :func:`report_from_result` is the inverse (used by ``fluxline plot``).
 """
 
 from __future__ import annotations
@@ -30,6 +30,8 @@ SIMULATION = "simulation"
 #: Tasks whose report carries its own ``timings`` (``<phase>_seconds``; the result's timings).
 TIMED_TASKS = ("predict",)
 _SECONDS = "_seconds"
+#: Array listing the dotted names of metadata whose value is null.
+NULLS = "null_metadata"
 
 
 def finite(value: Any) -> Any:
@@ -55,6 +57,7 @@ def report_result(task: str, resolved: Mapping[str, Any], report: Mapping[str, A
                                   kinds=tuple(entry))
     attributes: dict[str, Any] = {}
     arrays: dict[str, np.ndarray] = {}
+    nulls: list[str] = []
     for section in METADATA:
         if section not in report:
             continue
@@ -62,8 +65,12 @@ def report_result(task: str, resolved: Mapping[str, Any], report: Mapping[str, A
         for key, leaf in (flatten(value, section + ".") if isinstance(value, Mapping) else [(section, value)]):
             if isinstance(leaf, list):
                 arrays[key] = np.asarray(leaf)
-            elif leaf is not None:
+            elif leaf is None:
+                nulls.append(key)
+            else:
                 attributes[key] = leaf
+    if nulls:
+        arrays[NULLS] = np.array(nulls, dtype=str)
     tables = {}
     if SIMULATION in report:
         tables[SIMULATION] = Table({k: np.asarray(v) for k, v in report[SIMULATION].items()}, {"duration_us": "us"},
@@ -84,7 +91,8 @@ def report_from_result(result: RunResult) -> dict[str, Any]:
     for name, ts in result.series.items():
         if ts.kinds:
             report[name] = {kind: ts.kind(kind).tolist() for kind in ts.kinds}
-    leaves = [*result.attributes.items(), *((k, np.asarray(v).tolist()) for k, v in result.arrays.items())]
+    leaves = [*result.attributes.items(), *((k, None) for k in np.asarray(result.arrays.get(NULLS, [])).tolist()),
+              *((k, np.asarray(v).tolist()) for k, v in result.arrays.items() if k != NULLS)]
     for key, leaf in leaves:
         *path, last = key.split(".")
         node = report
