@@ -146,3 +146,24 @@ def test_fit_sweep_has_a_source_dimension(tmp_path):
                        "initial": {"kind": "vacuum"}, "variational": VARIATIONAL})
         np.testing.assert_allclose(field.sel({"model.mass": mass, "source": "reference"}).values,
                                    fit.reference["electric_field"].values, atol=1e-12)
+
+
+def test_sweep_of_a_kind_axis_has_a_kind_coordinate(tmp_path):
+    """A series with kinds becomes a variable with a ``kind`` dimension labelled by the kinds."""
+    import tomllib
+
+    from lgt.tasks import register_task, validate_spectrum
+
+    def run(resolved: dict) -> RunResult:
+        mass = resolved["model"]["mass"]
+        t = np.arange(3.0)
+        values = np.stack([np.full((3, 3), mass), np.full((3, 3), 2 * mass)], axis=-1)  # (time, link, kind)
+        return RunResult("test-kinds", resolved, {"field": TimeSeries(t, values, kinds=("raw", "mitigated"))})
+    register_task("test-kinds", validate_spectrum, run, sections=("model", "spectrum"))
+    cfg = tomllib.loads('[model]\nsites = 4\n[spectrum]\ncount = 2\n[sweep]\ntask = "test-kinds"\n'
+                        '[sweep.grid]\n"model.mass" = [0.1, 0.5]\n')
+    run_sweep(cfg, tmp_path / "k.h5", progress=False)
+    ds = to_xarray(tmp_path / "k.h5")
+    assert ds["field"].dims == ("model.mass", "time", "link", "kind")
+    assert ds["kind"].values.tolist() == ["raw", "mitigated"]
+    np.testing.assert_allclose(ds["field"].sel(kind="mitigated").values[:, 0, 0], [0.2, 1.0])
