@@ -6,7 +6,9 @@ Layout (documented in ``docs/hdf5_layout.md``, versioned by :data:`LAYOUT_VERSIO
   ``creator/name``, ``creator/version``) and the attribute ``fluxline_layout``;
 * run group: attributes (task, status, program version, units convention, parameters as JSON
   plus flattened ``param.<section>.<key>`` copies, ``timing.<phase>``, ``result.<name>``),
-  ``observables/<name>/{step,time,value}`` H5MD time series, ``arrays/<name>`` datasets and
+  ``observables/<name>/{step,time,value}`` H5MD time series (``value`` carries a ``kinds``
+  attribute when its trailing axis labels estimates), ``reference/<name>/{step,time,value}``
+  the exact reference of observables, ``arrays/<name>`` datasets and
   ``tables/<name>/<column>`` structured tables; attribute values too large for an HDF5
   attribute are datasets ``large_attributes/<attribute name>``.
 
@@ -37,9 +39,10 @@ atomic_h5 = _files.atomic_h5
 check_output_path = _files.check_output_path
 
 #: Version of the Fluxline HDF5 layout described in docs/hdf5_layout.md.
-LAYOUT_VERSION = 2
-#: Layout versions this reader understands (2 adds tables, large attributes, checksums).
-READABLE_LAYOUTS = (1, 2)
+LAYOUT_VERSION = 3
+#: Layout versions this reader understands (2 adds tables, large attributes, checksums; 3 the
+#: ``reference`` group and ``kinds`` axes).
+READABLE_LAYOUTS = (1, 2, 3)
 #: H5MD specification version the files follow (H5MD 1.1, section "H5MD metadata").
 H5MD_VERSION = (1, 1)
 #: Units convention stored on every run.
@@ -194,10 +197,12 @@ def write_run_group(group: h5py.Group, result: RunResult,
         set_attr(group, _RESULT + key, value)
     for key, value in (extra_attrs or {}).items():
         set_attr(group, key, value)
-    obs = group.create_group("observables")
-    for name, series in result.series.items():
-        _check_name(name, "observable")
-        _write_series(obs.create_group(name), series)
+    for where, collection in (("observables", result.series), ("reference", result.reference)):
+        if collection or where == "observables":
+            sub = group.create_group(where)
+            for name, series in collection.items():
+                _check_name(name, "observable")
+                _write_series(sub.create_group(name), series)
     arrays = group.create_group("arrays")
     for name, array in result.arrays.items():
         _check_name(name, "array")
@@ -237,7 +242,10 @@ def _write_series(group: h5py.Group, series: TimeSeries) -> None:
                          f"{times.shape[0]} stored times")
     _create_dataset(group, "step", np.asarray(series.steps, dtype=np.int64))
     _create_dataset(group, "time", times).attrs["unit"] = "lattice time"
-    _create_dataset(group, "value", _storable(values, "value")).attrs["unit"] = series.unit
+    value = _create_dataset(group, "value", _storable(values, "value"))
+    value.attrs["unit"] = series.unit
+    if series.kinds:
+        value.attrs["kinds"] = np.array(series.kinds, dtype=h5py.string_dtype())
 
 
 def _write_table(group: h5py.Group, table: Table) -> None:
@@ -284,16 +292,36 @@ def read_run(group: h5py.Group) -> RunResult:
             timings[key[len(_TIMING):]] = float(value)
         elif key.startswith(_RESULT):
             attributes[key[len(_RESULT):]] = value
-    series = {}
-    for name, sub in group.get("observables", {}).items():
-        values = sub["value"][()]
-        series[name] = TimeSeries(times=sub["time"][()], values=_decoded(values),
-                                  unit=str(_from_attr(sub["value"].attrs.get("unit", ""))))
+    series = {name: _read_series(sub) for name, sub in group.get("observables", {}).items()}
+    reference = {name: _read_series(sub) for name, sub in group.get("reference", {}).items()}
+    if "reference" not in group and str(attrs["task"]) == "fit":
+        reference = _legacy_fit_reference(series)
     arrays = {name: _decoded(ds[()]) for name, ds in group.get("arrays", {}).items()}
     tables = {name: _read_table(sub) for name, sub in group.get("tables", {}).items()}
     return RunResult(task=str(attrs["task"]), parameters=json.loads(attrs["parameters"]),
                      series=series, arrays=arrays, attributes=attributes, timings=timings,
-                     tables=tables)
+                     tables=tables, reference=reference)
+
+
+def _read_series(group: h5py.Group) -> TimeSeries:
+    value = group["value"]
+    kinds = [_from_attr(k) for k in value.attrs["kinds"]] if "kinds" in value.attrs else []
+    return TimeSeries(times=group["time"][()], values=_decoded(value[()]),
+                      unit=str(_from_attr(value.attrs.get("unit", ""))), kinds=tuple(kinds))
+
+
+#: Layout 1–2 fit runs stored the reference as series ``exact_<name>`` (and ``error_<name>``).
+_LEGACY_EXACT, _LEGACY_ERROR = "exact_", "error_"
+
+
+def _legacy_fit_reference(series: dict[str, TimeSeries]) -> dict[str, TimeSeries]:
+    """Move a layout 1–2 fit run's ``exact_<name>`` series into its reference (in place) and drop
+    the stored ``error_<name>`` copies (derived on demand now). The only place old names are read."""
+    legacy = [n for n in series if n.startswith(_LEGACY_EXACT) and n[len(_LEGACY_EXACT):] in series]
+    reference = {n[len(_LEGACY_EXACT):]: series.pop(n) for n in legacy}
+    for name in reference:
+        series.pop(_LEGACY_ERROR + name, None)
+    return reference
 
 
 def _read_table(group: h5py.Group) -> Table:

@@ -61,10 +61,10 @@ def _save(fig: Figure, path: Path) -> Path:
 
 
 def split_fit(result: RunResult) -> tuple[RunResult, RunResult]:
-    """(exact reference, variational) runs from a ``fit`` result, whose series hold each
-    compared observable twice: ``name`` (variational) and ``exact_name``."""
-    exact = {k[len("exact_"):]: v for k, v in result.series.items() if k.startswith("exact_")}
-    fitted = {k: v for k, v in result.series.items() if f"exact_{k}" in result.series}
+    """(exact reference, variational) runs from a ``fit`` result: its ``reference`` and the
+    series of the same observables."""
+    exact = dict(result.reference)
+    fitted = {name: result.series[name] for name in result.reference}
     return (RunResult("evolve", result.parameters, exact),
             RunResult("fit", result.parameters, fitted, attributes=result.attributes))
 
@@ -93,11 +93,10 @@ def plot_run(result: RunResult, outdir: str | Path, overlay: RunResult | None = 
     ``predict`` or ``analyze`` result is drawn by :func:`lgt.lab.plots.plot_lab_report`.
     """
     if result.task in ("predict", "analyze"):  # exact, raw and mitigated curves with error bands
-        import json
-
         from lgt.lab.plots import plot_lab_report
+        from lgt.lab.report import report_from_result
 
-        return plot_lab_report(json.loads(result.attributes["report_json"]), Path(outdir))
+        return plot_lab_report(report_from_result(result), Path(outdir))
     if result.task == "fit" and overlay is None:
         exact, fitted = split_fit(result)
         written = _plot_pair(exact, fitted, Path(outdir), prefix, ("exact", "variational"))

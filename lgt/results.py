@@ -20,11 +20,25 @@ class TimeSeries:
         One entry per stored time (per-link / per-site observables add trailing axes).
     unit : str
         Unit convention of ``values`` (e.g. ``"lattice energy"``, ``"dimensionless"``).
+    kinds : tuple of str
+        Labels of a trailing ``kind`` axis of ``values`` (e.g. ``("raw", "mitigated", ...)``:
+        several estimates of one observable); empty when ``values`` has no such axis.
     """
 
     times: np.ndarray
     values: np.ndarray
     unit: str = "dimensionless"
+    kinds: tuple[str, ...] = ()
+
+    def __post_init__(self) -> None:
+        self.kinds = tuple(str(k) for k in self.kinds)
+        if self.kinds and np.shape(self.values)[-1:] != (len(self.kinds),):
+            raise ValueError(f"values of shape {np.shape(self.values)} have no trailing axis of the "
+                             f"{len(self.kinds)} kinds {list(self.kinds)}")
+
+    def kind(self, name: str) -> np.ndarray:
+        """The values of one kind (the trailing axis removed)."""
+        return np.asarray(self.values)[..., self.kinds.index(name)]
 
     @property
     def steps(self) -> np.ndarray:
@@ -52,6 +66,10 @@ class RunResult:
         Wall-clock seconds of the run's phases.
     tables : dict[str, Table]
         Structured result tables (sizing rows, Trotter rows, ...), never JSON strings.
+    reference : dict[str, TimeSeries]
+        The exact reference of observables in ``series``, at the same times and of the same
+        shape (a ``fit`` stores the exact trajectory here); the deviation from it is derived
+        on demand by :meth:`reference_error`, never stored.
     """
 
     task: str
@@ -61,6 +79,28 @@ class RunResult:
     attributes: dict[str, Any] = field(default_factory=dict)
     timings: dict[str, float] = field(default_factory=dict)
     tables: dict[str, "Table"] = field(default_factory=dict)
+    reference: dict[str, TimeSeries] = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        for name, ref in self.reference.items():
+            own = self.series.get(name)
+            if own is None:
+                raise ValueError(f"reference {name!r} has no series of that name")
+            if np.shape(own.values) != np.shape(ref.values) or not np.allclose(own.times, ref.times):
+                raise ValueError(f"reference {name!r} is not at the times / of the shape of its series")
+
+    def reference_error(self, name: str) -> TimeSeries:
+        """Per stored time, the largest |series − reference| of observable ``name`` over its
+        other axes (links, sites)."""
+        return TimeSeries(self.series[name].times,
+                          max_deviation(self.series[name].values, self.reference[name].values),
+                          self.series[name].unit)
+
+
+def max_deviation(values: np.ndarray, reference: np.ndarray) -> np.ndarray:
+    """(T,) largest |values − reference| at each time over the trailing axes of (T, ...) arrays."""
+    err = np.abs(np.asarray(values) - np.asarray(reference))
+    return err.reshape(err.shape[0], -1).max(axis=1)
 
 
 @dataclass

@@ -149,6 +149,15 @@ def test_analyze_reproduces_exact_observables_within_errors(tmp_path):
     plotted = run_cli("plot", str(tmp_path / "a.h5"), "--outdir", str(tmp_path / "replot"))
     assert plotted.returncode == 0, plotted.stderr
     assert len(list((tmp_path / "replot").glob("analyze_*.png"))) == 1 + PARAMS.n_links
+    # the file holds structure, not the report as JSON text; the report rebuilt from it is the --json one
+    from lgt.io import read_run_file
+    from lgt.lab.report import report_from_result
+
+    with h5py.File(tmp_path / "a.h5") as f:
+        assert not any("report_json" in key for key in f.attrs)
+        assert list(f["observables/particle_density/value"].attrs["kinds"]) == list(rep["particle_density"])
+    rebuilt = report_from_result(read_run_file(tmp_path / "a.h5"))
+    assert rebuilt == rep
 
 
 def test_hdf5_form_equals_csv_form(tmp_path):
@@ -209,12 +218,22 @@ def test_predict_error_free_profile_equals_exact_within_shot_error(tmp_path):
 def test_predict_with_default_noise_reports_discards_and_mitigates(tmp_path):
     """Under the built-in illustrative model shots violate Gauss's law; post-selection moves ν
     towards the exact value compared with the raw estimate (on average over the window)."""
-    out = run_cli("predict", _config(tmp_path), "--json")
+    out = run_cli("predict", _config(tmp_path), "--json", "--output", str(tmp_path / "p.h5"))
     assert out.returncode == 0, out.stderr
     rep = json.loads(out.stdout)
     assert min(rep["discarded_fraction"]) > 0.01
     assert "recalled from memory" in rep["noise"]["noise_model"]["source"]
     assert rep["simulation"]["method"] == ["density"] * 6
+    # the file form: no JSON report, every section rebuilt from structure; `fluxline plot` draws it
+    from lgt.io import read_run_file
+    from lgt.lab.report import report_from_result
+
+    result = read_run_file(tmp_path / "p.h5")
+    assert "report_json" not in result.attributes and result.tables["simulation"].units["duration_us"] == "us"
+    assert report_from_result(result) == rep
+    plotted = run_cli("plot", str(tmp_path / "p.h5"), "--outdir", str(tmp_path / "replot"))
+    assert plotted.returncode == 0, plotted.stderr
+    assert len(list((tmp_path / "replot").glob("predict_*.png"))) == 1 + PARAMS.n_links
 
 
 def test_bad_lab_and_noise_tables_exit_2(tmp_path):

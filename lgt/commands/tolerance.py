@@ -25,7 +25,7 @@ def fit_meets_tolerance(result, settings: Mapping[str, Any]) -> bool:
         return bool(result.attributes["max_infidelity"] <= settings["tolerance"])
     from lgt.variational.sizing import CRITERION_OBSERVABLES
 
-    worst = max(float(np.max(result.series[f"error_{name}"].values)) for name in CRITERION_OBSERVABLES)
+    worst = max(float(np.max(result.reference_error(name).values)) for name in CRITERION_OBSERVABLES)
     return bool(worst <= settings["observable_tolerance"])
 
 

@@ -20,7 +20,8 @@ from lgt.lab.mitigation import StringObservables, analyze_counts, apply_response
 from lgt.lab.noise import LabNoise, lab_noise
 from lgt.lab.settings import LabSettings, resolve_lab
 from lgt.model import ModelParams
-from lgt.results import RunResult, TimeSeries
+from lgt.lab.report import finite, report_result
+from lgt.results import RunResult
 
 __all__ = ["OBSERVABLES", "split_config", "simulate_outcomes", "sample_shots", "run_predict", "run_analyze",
            "exact_observables"]
@@ -99,29 +100,11 @@ def _report(task: str, times: np.ndarray, per_time: list[dict], exact: dict[str,
             entry["zne_error"] = np.array([r["zne"][name][1] for r in per_time]).tolist()
         report[name] = entry
     report.update(extra)
-    return _finite(report)
-
-
-def _finite(value: Any) -> Any:
-    """NaN / inf (an error bar of a time without shots) as None, so the report is strict JSON."""
-    if isinstance(value, dict):
-        return {k: _finite(v) for k, v in value.items()}
-    if isinstance(value, list):
-        return [_finite(v) for v in value]
-    if isinstance(value, float) and not np.isfinite(value):
-        return None
-    return value
+    return finite(report)
 
 
 def _result(task: str, resolved: Mapping[str, Any], report: dict[str, Any], timings: dict[str, float]) -> RunResult:
-    times = np.asarray(report["times"])
-    series = {"discarded_fraction": TimeSeries(times, np.asarray(report["discarded_fraction"]))}
-    for name in OBSERVABLES:
-        for kind, values in report[name].items():
-            series[f"{name}_{kind}"] = TimeSeries(times, np.asarray(values, dtype=float))
-    attributes = {"report_json": json.dumps(report), "noise_model": report["noise"]["noise_model"]["name"],
-                  "hardware_profile": report["noise"]["profile"]}
-    return RunResult(task, dict(resolved), series, attributes=attributes, timings=timings)
+    return report_result(task, resolved, report, timings, OBSERVABLES)
 
 
 def load_fit(path: str | Path, resolved: Mapping[str, Any]) -> RunResult:
@@ -135,6 +118,9 @@ def load_fit(path: str | Path, resolved: Mapping[str, Any]) -> RunResult:
         raise InputError(str(path), f"cannot be read as a Fluxline run file ({exc})") from None
     if fit.task != "fit" or "parameters" not in fit.arrays:
         raise InputError(str(path), f"is a {fit.task!r} run, not a fit run with fitted parameters")
+    missing = [name for name in OBSERVABLES if name not in fit.reference]
+    if missing:
+        raise InputError(str(path), f"holds no exact reference of {', '.join(missing)}")
     for section in ("model", "initial", "variational"):
         if json.dumps(fit.parameters.get(section), sort_keys=True) != json.dumps(resolved[section], sort_keys=True):
             raise InputError(str(path), f"was fitted with a different [{section}] section than the configuration")
@@ -189,7 +175,7 @@ def run_predict(config: Mapping[str, Any], progress: bool = False,
     if bar is not None:
         bar.close()
     t2 = time.perf_counter()
-    exact = {name: fit.series[f"exact_{name}"].values for name in OBSERVABLES}
+    exact = {name: fit.reference[name].values for name in OBSERVABLES}
     extra = {"noise": noise.describe(), "lab": lab.to_dict(),
              "simulation": {key: [s[key] for s in info] for key in info[0]},
              "fit": {"max_infidelity": fit.attributes["max_infidelity"], "family": fit.attributes["family"],
@@ -198,7 +184,7 @@ def run_predict(config: Mapping[str, Any], progress: bool = False,
     for name in OBSERVABLES:  # the fitted circuits without noise (fit error only)
         report[name]["circuit"] = np.asarray(fit.series[name].values).tolist()
     report["timings"] = {"fit_seconds": t1 - t0, "simulate_and_mitigate_seconds": t2 - t1}
-    return report, _result("predict", resolved, report, {"fit": t1 - t0, "simulate": t2 - t1})
+    return report, _result("predict", resolved, report, {})
 
 
 def _zne(circuit, psi0: np.ndarray, noise: LabNoise, lab: LabSettings, obs: StringObservables, mats,

@@ -122,6 +122,8 @@ ARRAY_AXES = {"energies": ("level",), "gaps": ("level",), "field_values": ("fiel
 ARRAY_UNITS = {"energies": "lattice energy", "gaps": "lattice energy"}
 #: Unit of stored times.
 TIME_UNIT = "lattice time"
+#: Labels of the ``source`` axis of an observable that has an exact reference.
+SOURCES = ("result", "reference")
 
 
 def load_sweep(path: str | Path) -> dict[str, np.ndarray]:
@@ -182,8 +184,13 @@ def _entries(result: Any, axes: list[str]) -> Iterator[tuple[str, Any, tuple[str
     for name, series in result.series.items():
         values = np.asarray(series.values)
         taken.update((name, f"{name}/time"))
-        yield name, values, ("time", *_lattice_axes(name, values.shape[1:], sites)), \
-            {"units": series.unit}
+        lattice = values.shape[1:len(values.shape) - (1 if series.kinds else 0)]
+        dims = ("time", *_lattice_axes(name, lattice, sites), *(("kind",) if series.kinds else ()))
+        attrs = {"units": series.unit, **({"kinds": list(series.kinds)} if series.kinds else {})}
+        if name in result.reference:  # a leading source axis: the result, then its exact reference
+            values = np.stack([values, np.asarray(result.reference[name].values)])
+            dims, attrs = ("source", *dims), {**attrs, "sources": list(SOURCES)}
+        yield name, values, dims, attrs
         yield f"{name}/time", np.asarray(series.times), ("time",), {"units": TIME_UNIT}
     for table_name, table in result.tables.items():
         for column, values in table.columns.items():
@@ -239,8 +246,10 @@ def to_xarray(path: str | Path) -> Any:
     are coordinates along it); an incomplete one keeps the runs along a ``run`` dimension with
     the swept keys as coordinates. Observables have a ``time`` dimension (a coordinate when
     every run stored the same times; otherwise ``<name>/time`` variables) and ``site`` /
-    ``link`` axes; spectra a ``level`` axis; table columns ``<table>.<column>`` a
-    ``<table>_row`` axis. ``attrs["units"]`` carries each variable's unit.
+    ``link`` axes, a ``source`` axis (coordinate ``result`` / ``reference``) when the runs stored
+    an exact reference of it, a ``kind`` axis (coordinate: the estimate labels) when its values
+    carry kinds; spectra a ``level`` axis; table columns ``<table>.<column>`` a ``<table>_row``
+    axis. ``attrs["units"]`` carries each variable's unit.
     """
     import xarray as xr
 
@@ -262,7 +271,16 @@ def to_xarray(path: str | Path) -> Any:
         if name in coords or values.dtype == object or (shared_time and name.endswith("/time")):
             continue
         dims, attrs = meta.get(name, ((), {}))
-        variables[name] = xr.Variable(("run", *dims[:values.ndim - 1]), values, attrs=dict(attrs))
+        attrs = dict(attrs)
+        for dim, key in (("source", "sources"), ("kind", "kinds")):
+            if key in attrs:
+                labels = np.asarray(attrs.pop(key))
+                if dim in coords and not np.array_equal(coords[dim].values, labels):
+                    dims = tuple(f"{name}_{dim}" if d == dim else d for d in dims)
+                    attrs[key] = labels.tolist()
+                else:
+                    coords[dim] = xr.Variable((dim,), labels)
+        variables[name] = xr.Variable(("run", *dims[:values.ndim - 1]), values, attrs=attrs)
     ds = xr.Dataset(variables, coords=coords)
     if n == info["points"] and (info["grid"] or info["zip"]):
         ds = _gridded(ds, info)

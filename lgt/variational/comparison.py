@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from lgt.observables import Observer
+from lgt.results import max_deviation
 from lgt.variational.stepper import VariationalTrajectory
 
 #: Observables compared between variational and exact states (register measurements are
@@ -28,7 +29,7 @@ def compare_to_exact(observer: Observer, trajectory: VariationalTrajectory) -> d
     out = {}
     for name in observer.which:
         err = np.abs(var[name] - ex[name])
-        per_time = err.reshape(err.shape[0], -1).max(axis=1)
+        per_time = max_deviation(var[name], ex[name])
         out[name] = {"variational": var[name], "exact": ex[name], "error": per_time,
                      "max_error": float(per_time.max()), "rms_error": float(np.sqrt(np.mean(err ** 2)))}
     return out

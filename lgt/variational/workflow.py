@@ -18,7 +18,7 @@ from lgt.basis import PhysicalBasis
 from lgt.config import check_keys, table
 from lgt.model import ModelParams
 from lgt.resolved import VariationalConfig
-from lgt.results import RunResult, Table, TimeSeries
+from lgt.results import RunResult, Table, TimeSeries, max_deviation
 from lgt.states import prepare_initial_state
 from lgt.variational.ansatz import LayerOptions
 from lgt.variational.budget import Costing
@@ -90,8 +90,10 @@ def _progress(total: int, enabled: bool, desc: str):
     return (lambda k: bar.update(1)), bar.close
 
 
-def trajectory_series(traj: VariationalTrajectory, basis: PhysicalBasis) -> dict[str, TimeSeries]:
-    """Fit diagnostics and every compared observable (variational and ``exact_`` reference)."""
+def trajectory_series(traj: VariationalTrajectory,
+                      basis: PhysicalBasis) -> tuple[dict[str, TimeSeries], dict[str, TimeSeries]]:
+    """(fit diagnostics and every compared observable of the variational states, the exact
+    reference of those observables at the same times) — ``RunResult.series`` and ``.reference``."""
     times = traj.times
     series = {
         "fidelity": TimeSeries(times, traj.fidelity),
@@ -100,11 +102,11 @@ def trajectory_series(traj: VariationalTrajectory, basis: PhysicalBasis) -> dict
         "optimizer_iterations": TimeSeries(times, traj.iterations.astype(float)),
         "step_seconds": TimeSeries(times, traj.wall_time, unit="seconds"),
     }
+    reference = {}
     for name, cmp in compare_to_exact(make_observer(traj, basis), traj).items():
         series[name] = TimeSeries(times, np.asarray(cmp["variational"]))
-        series[f"exact_{name}"] = TimeSeries(times, np.asarray(cmp["exact"]))
-        series[f"error_{name}"] = TimeSeries(times, np.asarray(cmp["error"]))
-    return series
+        reference[name] = TimeSeries(times, np.asarray(cmp["exact"]))
+    return series, reference
 
 
 def run_fit(resolved: Mapping[str, Any], progress: bool = False) -> RunResult:
@@ -124,11 +126,11 @@ def run_fit(resolved: Mapping[str, Any], progress: bool = False) -> RunResult:
     finally:
         close()
     t1 = time.perf_counter()
-    series = trajectory_series(traj, basis)
+    series, reference = trajectory_series(traj, basis)
     costing = _costing(params, settings, profile)
     cost = family.native_cost(ansatz, costing)
     trotter = trotter_rows(basis, psi0, settings, costing.terms())
-    obs_err = max(float(np.max(series[f"error_{name}"].values)) for name in CRITERION_OBSERVABLES)
+    obs_err = max(float(np.max(max_deviation(series[n].values, reference[n].values))) for n in CRITERION_OBSERVABLES)
     attributes = {
         "family": settings.family, "layers": settings.layers, "parameters": ansatz.n_params,
         "space": ansatz.space, "dimension": basis.dimension,
@@ -143,7 +145,7 @@ def run_fit(resolved: Mapping[str, Any], progress: bool = False) -> RunResult:
     tables = {"trotter": rows_table(TrotterRow, trotter, TROTTER_DESCRIPTION)}
     return RunResult("fit", dict(resolved), series, arrays={"parameters": traj.params},
                      attributes=attributes, timings={"fit": t1 - t0, "compare": time.perf_counter() - t1},
-                     tables=tables)
+                     tables=tables, reference=reference)
 
 
 TROTTER_DESCRIPTION = ("least Trotter steps meeting the tolerance per order (steps = -1: not reached "
