@@ -177,6 +177,10 @@ class ExactPropagator:
         else:
             yield from self._expm(psi, times)
 
+    def step(self, psi: np.ndarray, dt: float) -> np.ndarray:
+        """ψ(dt) = e^{−iH dt} ψ (one step, e.g. the target of a variational step)."""
+        return self.trajectory(psi, np.array([0.0, float(dt)]))[-1]
+
     def trajectory(self, psi0: np.ndarray, times: np.ndarray) -> np.ndarray:
         """States at every time, shape (len(times), dim)."""
         out = np.empty((len(times), np.size(psi0)), dtype=np.complex128)

@@ -25,7 +25,8 @@ from lgt.sweep.pinning import single_thread_environ
 
 import fault_helpers
 
-# 8 evolve runs of ~0.2 s each (N = 4, d = 3, 6 physical states, 161 stored times).
+# 8 evolve runs of ~1 s each (N = 4, d = 3, 6 physical states, 801 stored times): long enough
+# that a signal sent after two complete runs lands while the others are still running.
 SWEEP = '''
 [model]
 sites = 4
@@ -35,7 +36,7 @@ kind = "meson"
 sites = [1, 2]
 [evolution]
 t_final = 8.0
-dt = 0.05
+dt = 0.01
 observables = ["loschmidt_echo"]
 [sweep]
 task = "evolve"

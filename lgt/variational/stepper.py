@@ -13,14 +13,13 @@ import time
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.sparse.linalg import expm_multiply
 
 from scipy.optimize import minimize
 
 from circuits.blas_threads import single_threaded_blas
 from circuits.fitting import FitResult, fit_to_target
 from lgt.hamiltonian import build_hamiltonian
-from lgt.propagation import evolve_states
+from lgt.propagation import ExactPropagator, evolve_states
 from lgt.variational.ansatz import ModelAnsatz
 
 MODES = ("dynamics", "compression")
@@ -103,7 +102,9 @@ def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: in
         raise ValueError(f"mode must be one of {MODES}, got {mode!r}")
     psi0 = np.asarray(psi0, dtype=np.complex128)
     exact = exact_trajectory(ansatz, psi0, dt, n_steps)
-    A = (-1j * dt) * ansatz.hamiltonian.tocsr()
+    # the one exact propagator (lgt.propagation) gives each step's target e^{−iH dt} ψ(θ_old);
+    # expm_multiply suits a single short step
+    stepper = ExactPropagator(ansatz.hamiltonian, method="expm_multiply") if mode == "dynamics" else None
     v0 = ansatz.embed(psi0)
     P = ansatz.n_params
     T = n_steps + 1
@@ -121,7 +122,7 @@ def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: in
     rng = np.random.default_rng(seed)
     for k in range(n_steps):
         t0 = time.perf_counter()
-        target = expm_multiply(A, current) if mode == "dynamics" else ansatz.embed(exact[k + 1])
+        target = stepper.step(current, dt) if stepper is not None else ansatz.embed(exact[k + 1])
         start = params[k] + (params[k] - params[k - 1] if k > 0 else 0.0)
         candidates = [start, params[k]]
         if warm is not None and k + 1 < len(warm):
@@ -145,6 +146,8 @@ def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: in
         if abort_infidelity is not None and 1.0 - fidelity[k + 1] > abort_infidelity:
             T = k + 2
             break
+    if stepper is not None:
+        stepper.close()
     return VariationalTrajectory(np.arange(T) * dt, params[:T], step_inf[:T], fidelity[:T], leakage[:T],
                                  iters[:T], nfev[:T], wall[:T], states[:T], exact[:T])
 
