@@ -15,11 +15,14 @@ from lgt.commands.tolerance import report
 
 def _run(args: argparse.Namespace) -> int:
     from lgt.tasks import get_task
+    from lgt.variational.budget import COST_WORDS, profile_lines, profile_summary
     from lgt.variational.workflow import size_summary_dict
 
     resolved = resolve(args, "size")
     result = get_task("size").run(resolved, log=stderr_log(args))
     summary = size_summary_dict(result)
+    summary["cost_source"] = result.attributes["cost_source"]
+    summary.update(profile_summary(resolved.profile))
     write_output(args, result)
     v = resolved["variational"]
     status = report(summary["meets_tolerance"], f"no depth up to max_layers = {v['max_layers']}", v)
@@ -27,6 +30,10 @@ def _run(args: argparse.Namespace) -> int:
         print(json.dumps(summary))
         return status
     print(f"depth sizing: tolerance {v['tolerance']} on {v['criterion']} over [0, {v['t_final']}]")
+    for line in profile_lines(resolved.profile):
+        print(line)
+    source = summary["cost_source"]
+    print(f"native costs priced from the {COST_WORDS.get(source, source)}")
     for family, part in summary["families"].items():
         print(f"\n{family} layers (native gates per circuit; '<' marks the least depth meeting the tolerance)")
         print(f"{'D':>3} {'params':>7} {'max 1-F':>10} {'leakage':>9} {'2q gates':>9} {'1q gates':>9} "

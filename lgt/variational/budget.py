@@ -28,6 +28,9 @@ from lgt.variational.native_cost import NativeCounts, TermCost, summed_cost
 #: Where a price comes from: the native circuit that export writes, the summed term
 #: exponentials (durations added), or a circuit's own gates as they stand.
 COST_SOURCES = ("exported", "terms", "circuit")
+#: how text output names each source
+COST_WORDS = {"exported": "exported native circuit", "terms": "summed term exponentials",
+              "circuit": "circuit's own gates", "exported+terms": "exported native circuits (deep ones: summed terms)"}
 #: Largest native circuit (gates) priced from its exported form; larger ones are priced from
 #: their terms (building and scheduling the native circuit costs about 15 µs per gate).
 MAX_EXPORT_PRICED_GATES = 200_000
