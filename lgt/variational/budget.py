@@ -19,7 +19,8 @@ import numpy as np
 from circuits.circuit import ParametrizedCircuit
 from circuits.hardware import HardwareProfile, hardware_key
 from circuits.native import NotDecomposable
-from circuits.native_export import native_circuit
+from circuits.accounting import schedule
+from circuits.native_export import NativeCircuit, native_circuit
 from circuits.noise import noisy_density_matrix
 from lgt.variational.families import ModelAnsatz, get_family
 from lgt.variational.native_cost import NativeCounts, TermCost, summed_cost
@@ -67,6 +68,7 @@ class Costing:
         self.max_gates = max_gates
         self._priced: dict[tuple, CircuitCost] = {}
         self._blocks: dict[str, Any] = {}
+        self._layer_native: dict[tuple, Any] = {}
         self.sources: dict[tuple[str, int], str] = {}
 
     def terms(self) -> dict[str, TermCost]:
@@ -89,42 +91,68 @@ class Costing:
         counts = {k: v * repeats for k, v in layer.counts.items()}
         return CircuitCost(counts, layer.fidelity ** repeats, layer.duration_us * repeats, "terms")
 
-    def of_export(self, ansatz: ModelAnsatz, register_circuit: Callable[[], ParametrizedCircuit],
+    def of_export(self, ansatz: ModelAnsatz, layer_circuit: Callable[[], ParametrizedCircuit],
                   fallback: Callable[[], CircuitCost]) -> CircuitCost:
-        """Cost of the native circuit :func:`circuits.native_export.native_circuit` makes of
-        ``register_circuit()`` (what export writes for ``ansatz``'s depth): its counts, product
-        of gate fidelities and ASAP duration.
+        """Cost of the native circuit export writes for ``ansatz``: ``ansatz.layers`` copies of
+        ``layer_circuit()`` (one layer of the register form; every layer of a family has the same
+        gates) made native by :func:`circuits.native_export.native_circuit` — counts × D,
+        (product of the layer's gate fidelities)^D and the ASAP makespan of the repeated native
+        gates (:func:`circuits.accounting.schedule`, the rule of
+        :meth:`~circuits.native_export.NativeCircuit.cost`).
 
         Native blocks are exact at every angle, so the structure (and the cost) does not depend
-        on the angles: the circuit is priced once per family and depth, at zero angles. The price
-        is ``fallback()`` (with its own source, ``"terms"`` or ``"circuit"``) when exported
-        pricing is off, when ``fallback()`` counts more than :attr:`max_gates` gates, or when a
-        gate has no exact native block.
+        on the angles: the layer is made native once per family, at zero angles, and each depth
+        is priced once. The price is ``fallback()`` (with its own source, ``"terms"`` or
+        ``"circuit"``) when exported pricing is off, when ``fallback()`` counts more than
+        :attr:`max_gates` gates, or when a gate has no exact native block.
         """
         key = (ansatz.family, ansatz.layers, len(ansatz.circuit.ops))
         if key not in self._priced:
-            self._priced[key] = self._price_export(register_circuit, fallback)
+            self._priced[key] = self._price_export(ansatz, layer_circuit, fallback)
             self.sources[(ansatz.family, ansatz.layers)] = self._priced[key].source
         return self._priced[key]
 
-    def _price_export(self, register_circuit, fallback) -> CircuitCost:
+    def _price_export(self, ansatz: ModelAnsatz, layer_circuit, fallback) -> CircuitCost:
         rough = fallback()
         if not self.exported or sum(rough.counts.values()) > self.max_gates:
             return rough
-        circuit = register_circuit()
-        try:
-            native = native_circuit(circuit, np.zeros(circuit.n_params), self.profile.gate_set(circuit.space.d),
-                                    self._blocks)
-        except NotDecomposable:
+        layer_key = (ansatz.family, len(ansatz.circuit.ops) // max(ansatz.layers, 1))
+        if layer_key not in self._layer_native:
+            layer = layer_circuit()
+            try:
+                native = native_circuit(layer, np.zeros(layer.n_params), self.profile.gate_set(layer.space.d),
+                                        self._blocks).circuit
+            except NotDecomposable:
+                native = None
+            durations = {} if native is None else {id(op.gate): self.profile.spec(op.gate).duration_us
+                                                   for op in native.ops}
+            cost = None if native is None else NativeCircuit(native, 1.0).cost(self.profile)
+            self._layer_native[layer_key] = (native, cost, durations)
+        native, cost, durations = self._layer_native[layer_key]
+        if native is None:
             return rough
-        cost = native.cost(self.profile)
-        return CircuitCost(cost.counts, cost.fidelity, cost.duration_us, "exported")
+        deep = ParametrizedCircuit(native.space)
+        for r in range(ansatz.layers):
+            for op in native.ops:
+                deep.append(op.gate, None, layer=r)
+        duration = schedule(deep, lambda op: durations[id(op.gate)]).makespan
+        return CircuitCost({k: v * ansatz.layers for k, v in cost.counts.items()}, cost.fidelity ** ansatz.layers,
+                           duration, "exported")
 
     def source(self, family: str) -> str:
         """Where the prices of ``family``'s depths came from: one of :data:`COST_SOURCES`, or
         several joined by ``"+"`` (e.g. ``"exported+terms"`` when deep circuits were too large)."""
         found = [v for (f, _), v in sorted(self.sources.items()) if f == family]
         return "+".join(dict.fromkeys(found)) or "terms"
+
+
+def first_layer(circuit: ParametrizedCircuit) -> ParametrizedCircuit:
+    """The gates of ``circuit`` tagged ``layer == 0`` (fixed at zero angle)."""
+    out = ParametrizedCircuit(circuit.space)
+    for op in circuit.ops:
+        if op.layer == 0:
+            out.append(op.gate, None, layer=0)
+    return out
 
 
 def ansatz_cost(ansatz: ModelAnsatz, profile: HardwareProfile,

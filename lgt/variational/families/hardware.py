@@ -52,7 +52,10 @@ class HardwareFamily(LayerFamily):
 
     def native_cost(self, ansatz, costing):
         """The exported native circuit (the brickwork's own gates when it is not built)."""
-        return costing.of_export(ansatz, lambda: ansatz.circuit, lambda: costing.of_circuit(ansatz.circuit))
+        from lgt.variational.budget import first_layer  # budget imports the registry
+
+        return costing.of_export(ansatz, lambda: first_layer(ansatz.circuit),
+                                 lambda: costing.of_circuit(ansatz.circuit))
 
 
 register_family(HardwareFamily())

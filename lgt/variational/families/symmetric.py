@@ -98,7 +98,7 @@ class SymmetricFamily(LayerFamily):
     def native_cost(self, ansatz, costing):
         """The exported native circuit of the register form (summed term exponentials of one
         layer, times D, when it is not built)."""
-        return costing.of_export(ansatz, lambda: symmetric_register_circuit(ansatz.basis.params, ansatz.layers),
+        return costing.of_export(ansatz, lambda: symmetric_register_circuit(ansatz.basis.params, 1),
                                  lambda: costing.of_terms(ansatz.labels, ansatz.layers))
 
 
