@@ -124,3 +124,28 @@ def test_fit_and_size_outputs_name_the_profile(tmp_path, monkeypatch, capsys):
         assert main([command, builtin, "--quiet"]) == 0
         text = capsys.readouterr().out
         assert all(line in text for line in sources)
+
+
+def test_large_circuits_and_generic_blocks_fall_back_to_summed_terms():
+    # above max_gates (or with exported pricing off, compile = false) the price is the summed term
+    # exponentials, durations added — never shorter than the ASAP schedule of the same gates
+    # (a schedule property, common practice, no source), and the source says which was used
+    from circuits.hardware import load_profile
+    from lgt.basis import PhysicalBasis
+    from lgt.model import ModelParams
+    from lgt.variational.budget import Costing
+    from lgt.variational.native_cost import model_term_costs
+    from lgt.variational.sizing import depth_ansatz, depth_cost
+    from lgt.variational.settings import resolve_variational
+
+    basis = PhysicalBasis(ModelParams(**MODEL))
+    profile = load_profile(None)
+    settings = resolve_variational({"variational": {"t_final": 0.1}}, MODEL["levels"])
+    terms = model_term_costs(basis.params, settings.native_spec(), profile)
+    ansatz = depth_ansatz(basis, settings, 3)
+    exported = depth_cost(ansatz, Costing(profile, terms))
+    capped = Costing(profile, terms, max_gates=10)
+    summed = depth_cost(ansatz, capped)
+    assert (exported.source, summed.source, capped.source("symmetric")) == ("exported", "terms", "terms")
+    assert summed.counts == exported.counts and summed.duration_us >= exported.duration_us
+    assert depth_cost(ansatz, Costing(profile, terms, exported=False)).source == "terms"
