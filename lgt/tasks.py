@@ -204,22 +204,30 @@ def run_spectrum(resolved: SpectrumConfig, progress: bool = False) -> RunResult:
 
     Returns arrays ``energies`` and ``gaps`` (lattice energy) and the attributes ``dimension``
     (physical-subspace dimension) and ``levels_returned`` (``count`` capped at the dimension).
+    With ``progress``, a Lanczos run (dimension above :data:`lgt.spectrum.DENSE_THRESHOLD`)
+    prints a line on stderr when it starts and after each Lanczos round.
     """
+    import sys
+
     import numpy as np
 
     from lgt.basis import PhysicalBasis
     from lgt.hamiltonian import build_hamiltonian
-    from lgt.spectrum import lowest_levels
+    from lgt.spectrum import DENSE_THRESHOLD, lowest_levels
 
-    if resolved["spectrum"].get("method") == "mps":  # DMRG on long chains
+    if resolved.solver.get("method") == "mps":  # DMRG on long chains
         from lgt.mps.dmrg import run_spectrum_task
         return run_spectrum_task(resolved)
+    say = (lambda line: print(f"fluxline: {line}", file=sys.stderr, flush=True)) if progress else None
     t0 = time.perf_counter()
     basis = PhysicalBasis(resolved.model)
     hamiltonian = build_hamiltonian(basis)
     t1 = time.perf_counter()
     count = min(resolved.count, basis.dimension)
-    energies = np.sort(np.asarray(lowest_levels(hamiltonian, count), dtype=np.float64))
+    if say and basis.dimension > DENSE_THRESHOLD:
+        say(f"spectrum: Hamiltonian of {basis.dimension} physical states built in {t1 - t0:.1f} s "
+            f"({hamiltonian.nnz} non-zeros); Lanczos for the {count} lowest levels ...")
+    energies = np.sort(np.asarray(lowest_levels(hamiltonian, count, progress=say), dtype=np.float64))
     t2 = time.perf_counter()
     return RunResult(task="spectrum", parameters=resolved.to_dict(),
                      arrays={"energies": energies, "gaps": energies - energies[0]},

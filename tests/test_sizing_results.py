@@ -123,11 +123,18 @@ def test_compiled_term_costs_replace_generic_blocks(basis, tmp_path, monkeypatch
         pytest.skip("hopping blocks not shipped for this model: compiling them is slow")
     profile = load_profile(None)
     compiled = Costing(profile, lambda: model_term_costs(basis.params, settings.native_spec(), profile, compile=True))
-    generic = Costing(profile, lambda: model_term_costs(basis.params, settings.native_spec(), profile, compile=False))
+    generic = Costing(profile, lambda: model_term_costs(basis.params, settings.native_spec(), profile, compile=False),
+                      exported=False)
     ansatz = depth_ansatz(basis, settings, 2)
     c, g = depth_cost(ansatz, compiled), depth_cost(ansatz, generic)
     assert c.other == 0 and g.other == 2 * 3  # three hopping terms per layer
     assert c.two_qudit == 2 * (2 + 16 + 2)
+    assert (c.source, g.source) == ("exported", "terms")
+    # the exported circuit is scheduled as soon as possible: never longer than the blocks run one
+    # after another (durations added), with the same gates
+    summed = compiled.of_terms(ansatz.labels, 2)
+    assert c.counts == summed.counts and c.fidelity == pytest.approx(summed.fidelity, rel=1e-12)
+    assert c.duration_us <= summed.duration_us
     assert not list(tmp_path.iterdir())  # nothing compiled, nothing written
 
 

@@ -26,6 +26,9 @@ def fit_summary(result) -> dict:
         "meets_tolerance": a["meets_tolerance"], "criterion": a["criterion"], "tolerance": a["tolerance"],
         "layers": a["layers"],
         "family": a["family"],
+        "cost_source": a["cost_source"],
+        "hardware_profile": {"name": a["hardware_profile"], "path": a["hardware_profile_path"],
+                             "sha256": a["hardware_profile_sha256"]},
         "table": [row],
         "trotter": trotter_summary(result),
         "budget": {"noise_fidelity": a["noise_fidelity"], "total_fidelity": row["total_fidelity"],
@@ -39,6 +42,7 @@ def fit_summary(result) -> dict:
 
 def _run(args: argparse.Namespace) -> int:
     from lgt.tasks import get_task
+    from lgt.variational.budget import COST_WORDS, profile_lines, profile_summary
     from lgt.variational.workflow import export_circuits
 
     if args.circuits:
@@ -52,6 +56,7 @@ def _run(args: argparse.Namespace) -> int:
     summary = fit_summary(result)
     summary["tolerance"] = settings["tolerance"]
     summary["meets_tolerance"] = fit_meets_tolerance(result, settings)
+    summary.update(profile_summary(resolved.profile))
     status = report(summary["meets_tolerance"], f"the fit of D = {summary['layers']} layers", settings)
     if args.json:
         print(json.dumps(summary))
@@ -61,7 +66,10 @@ def _run(args: argparse.Namespace) -> int:
     print(f"  max infidelity over the window {row['max_infidelity']:.3e}, final fidelity {row['final_fidelity']:.6f}")
     print(f"  sum of step infidelities {row['sum_step_infidelity']:.3e}, max leakage {row['max_leakage']:.3e}")
     print(f"  native gates per circuit: {row['two_qudit_gates']} two-qudit, {row['single_qudit_gates']} single-qudit, "
-          f"{row['duration_us']:.0f} us; predicted noise fidelity {row['noise_fidelity']:.4f}")
+          f"{row['duration_us']:.0f} us; predicted noise fidelity {row['noise_fidelity']:.4f} "
+          f"(priced from the {COST_WORDS.get(summary['cost_source'], summary['cost_source'])})")
+    for line in profile_lines(resolved.profile):
+        print(f"  {line}")
     for t in summary["trotter"]:
         steps = t["steps"] if t["steps"] is not None else "not reached"
         print(f"  Trotter order {t['order']}: {steps} steps, {t['two_qudit_gates']} two-qudit gates at T")

@@ -1,4 +1,5 @@
-"""``fluxline spectrum CONFIG.toml [--count K] [--output F.h5] [--json]``: the spectrum task."""
+"""``fluxline spectrum CONFIG.toml [--count K] [--output F.h5] [--json] [--quiet]``: the spectrum
+task (progress lines on stderr for Lanczos-sized models unless ``--quiet``)."""
 
 from __future__ import annotations
 
@@ -30,7 +31,7 @@ def _run(args: argparse.Namespace) -> int:
     if args.count is not None:
         overrides = {"spectrum": {"count": as_int(args.count, "--count", minimum=1, maximum=MAX_SPECTRUM_COUNT)}}
     resolved = resolve(args, "spectrum", overrides)
-    result = get_task("spectrum").run(resolved)
+    result = get_task("spectrum").run(resolved, progress=not args.quiet)
     write_output(args, result)
     summary = spectrum_summary(result)
     if args.json:

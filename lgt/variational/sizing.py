@@ -261,7 +261,7 @@ def size_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSett
         abort = thresholds[layers]
         if fast and abort is not None and noise[layers] > 0:
             abort = max(settings.tolerance, min(abort, 1.0 - best_total / noise[layers]))
-        row, traj, ansatz = evaluate_depth(basis, psi0, settings, layers, costing, abort=abort,
+        row, traj, ansatz = evaluate_depth(basis, psi0, settings, layers, costing, getattr(log, "step", None), abort=abort,
                                            fast=fast, shallower=shallower if fast and warm_starts else None)
         shallower = (ansatz, traj)
         best_total = max(best_total, row.total_fidelity)

@@ -76,7 +76,8 @@ def _costing(params: ModelParams, settings: VariationalSettings, profile) -> Cos
     """Prices of the run's circuits; the term exponentials are compiled (or read from the
     cache) on first use."""
     return Costing(profile, lambda: model_term_costs(params, settings.native_spec(), profile, settings.compile_fidelity,
-                                                     compile=settings.compile, seed=settings.seed))
+                                                     compile=settings.compile, seed=settings.seed),
+                   exported=settings.compile)
 
 
 def _progress(total: int, enabled: bool, desc: str):
@@ -138,8 +139,8 @@ def run_fit(resolved: Mapping[str, Any], progress: bool = False) -> RunResult:
         "sum_step_infidelity": float(traj.step_infidelity.sum()),
         "max_leakage": float(traj.leakage.max()), "max_observable_error": obs_err,
         "two_qudit_gates": cost.two_qudit, "single_qudit_gates": cost.single_qudit,
-        "duration_us": cost.duration_us, "noise_fidelity": cost.fidelity,
-        "hardware_profile": profile.name,
+        "duration_us": cost.duration_us, "noise_fidelity": cost.fidelity, "cost_source": cost.source,
+        **_profile_attributes(profile),
         **_tolerance_attributes(settings, meets(settings, traj.max_infidelity, obs_err)),
     }
     tables = {"trotter": rows_table(TrotterRow, trotter, TROTTER_DESCRIPTION)}
@@ -150,6 +151,13 @@ def run_fit(resolved: Mapping[str, Any], progress: bool = False) -> RunResult:
 
 TROTTER_DESCRIPTION = ("least Trotter steps meeting the tolerance per order (steps = -1: not reached "
                        "within trotter_max_steps), with the native cost of the whole circuit to T")
+
+
+def _profile_attributes(profile) -> dict[str, str]:
+    """``hardware_profile`` (name), ``hardware_profile_path`` and ``hardware_profile_sha256``."""
+    ident = profile.identity()
+    return {"hardware_profile": ident["name"], "hardware_profile_path": ident["path"],
+            "hardware_profile_sha256": ident["sha256"]}
 
 
 def _tolerance_attributes(settings: VariationalSettings, met: bool) -> dict[str, Any]:
@@ -251,7 +259,7 @@ def run_size(resolved: Mapping[str, Any], log=None) -> RunResult:
     attributes = {
         "layers": NONE if result.chosen is None else result.chosen,
         "best_layers_under_noise": NONE if result.best_under_noise is None else result.best_under_noise,
-        "family": settings.family, "hardware_profile": profile.name,
+        "family": settings.family, "cost_source": costing.source(settings.family), **_profile_attributes(profile),
         **_tolerance_attributes(settings, result.chosen is not None),
     }
     return RunResult("size", dict(resolved), {}, arrays, attributes,

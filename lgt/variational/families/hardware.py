@@ -2,7 +2,8 @@
 then the configured entangler on even bonds, then odd bonds; one angle per gate).
 
 They know nothing of Gauss's law, so they run on the d^K register, where H acts as zero outside
-the physical subspace, and leak out of it. Their native cost is that of their own gates.
+the physical subspace, and leak out of it. Their native cost is that of the native circuit export
+writes (the brickwork with any gate the profile lacks replaced by its exact block).
 """
 
 from __future__ import annotations
@@ -50,8 +51,11 @@ class HardwareFamily(LayerFamily):
         return hardware_ansatz(basis, layers, options.spec)
 
     def native_cost(self, ansatz, costing):
-        """The profile's cost of every gate of the circuit (the gates are native already)."""
-        return costing.of_circuit(ansatz.circuit)
+        """The exported native circuit (the brickwork's own gates when it is not built)."""
+        from lgt.variational.budget import first_layer  # budget imports the registry
+
+        return costing.of_export(ansatz, lambda: first_layer(ansatz.circuit),
+                                 lambda: costing.of_circuit(ansatz.circuit))
 
 
 register_family(HardwareFamily())

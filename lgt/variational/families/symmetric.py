@@ -2,12 +2,15 @@
 
 They commute with Gauss's law, so fits run on the physical subspace (``space="physical"``),
 far smaller than the register; the same circuit on the register (``space="register"``) gives
-identical states and is what a lab would run (and what is exported). Their native cost is the
-compiled cost of each term exponential (:mod:`lgt.variational.native_cost`).
+identical states and is what a lab would run (and what is exported). Their native cost is that
+of the native circuit export writes for the register form (:meth:`~lgt.variational.budget.Costing.of_export`),
+or the summed compiled cost of each term exponential (:mod:`lgt.variational.native_cost`) when
+that circuit is not built.
 """
 
 from __future__ import annotations
 
+from circuits.circuit import ParametrizedCircuit
 from circuits.layers import build_layers, generator_layer_builder
 from circuits.register import Space
 from circuits.terms import LocalTerm as CircuitTerm
@@ -49,6 +52,16 @@ def _groups(order: list[tuple[str, int, str]], angles: str) -> list[int]:
     return [kinds.index(key) for key in keys]
 
 
+def symmetric_register_circuit(p: ModelParams, layers: int, angles: str = "term") -> ParametrizedCircuit:
+    """The register form of ``layers`` symmetric layers (local gates on the K link qudits; no
+    d^K object is built)."""
+    order = ordered_terms(p)
+    by_key = {(t.kind, t.index): CircuitTerm(t.qudits, t.matrix) for t in local_terms(p)}
+    reg = Space.qudits(p.n_links, p.levels)
+    return build_layers(reg, layers, generator_layer_builder(reg, [by_key[(k, i)] for k, i, _ in order],
+                                                             _groups(order, angles)))
+
+
 def symmetric_ansatz(basis: PhysicalBasis, layers: int, angles: str = "term",
                      space: str = "physical") -> ModelAnsatz:
     """``layers`` layers of exp(−iθ h) over the model's own terms (one angle per term or per type)."""
@@ -64,12 +77,10 @@ def symmetric_ansatz(basis: PhysicalBasis, layers: int, angles: str = "term",
         terms = [by_key[(k, i)] for k, i, _ in order]
         sp_space = Space.subspace(basis.dimension)
         H = build_hamiltonian(basis)
+        circuit = build_layers(sp_space, layers, generator_layer_builder(sp_space, terms, groups))
     else:
-        by_key = {(t.kind, t.index): CircuitTerm(t.qudits, t.matrix) for t in local_terms(p)}
-        terms = [by_key[(k, i)] for k, i, _ in order]
-        sp_space = Space.qudits(p.n_links, p.levels)
+        circuit = symmetric_register_circuit(p, layers, angles)
         H = register_hamiltonian(p, physical_only=True, basis=basis)
-    circuit = build_layers(sp_space, layers, generator_layer_builder(sp_space, terms, groups))
     labels = [f"{k}{i}" for k, i, _ in order]
     return ModelAnsatz(SymmetricFamily.name, space, circuit, H, basis, layers, labels)
 
@@ -85,8 +96,10 @@ class SymmetricFamily(LayerFamily):
         return symmetric_ansatz(basis, layers, options.angles, space or self.fit_space)
 
     def native_cost(self, ansatz, costing):
-        """Sum of the compiled term exponentials of one layer, times D."""
-        return costing.of_terms(ansatz.labels, ansatz.layers)
+        """The exported native circuit of the register form (summed term exponentials of one
+        layer, times D, when it is not built)."""
+        return costing.of_export(ansatz, lambda: symmetric_register_circuit(ansatz.basis.params, 1),
+                                 lambda: costing.of_terms(ansatz.labels, ansatz.layers))
 
 
 register_family(SymmetricFamily())
