@@ -249,6 +249,7 @@ def run_size(resolved: Mapping[str, Any], log=None) -> RunResult:
     attributes = {
         "layers": NONE if result.chosen is None else result.chosen,
         "best_layers_under_noise": NONE if result.best_under_noise is None else result.best_under_noise,
+        "best_layers_under_noise_simulated": NONE if result.best_under_noise_simulated is None else result.best_under_noise_simulated,
         "family": settings.family, "hardware_profile": profile.name,
         **_tolerance_attributes(settings, result.chosen is not None),
     }
@@ -314,6 +315,7 @@ def size_summary_dict(result: RunResult) -> dict[str, Any]:
         "table": table,
         "trotter": trotter_summary(result),
         "budget": {"best_layers_under_noise": none(a["best_layers_under_noise"]),
+                   "best_layers_under_noise_simulated": none(a.get("best_layers_under_noise_simulated", NONE)),
                    "rows": [{"layers": r["layers"], "noise_fidelity": r["noise_fidelity"],
                              "total_fidelity": r["total_fidelity"]} for r in table]},
         "shots": {r["observable"]: r["shots"] for r in t["shots"].rows()},
