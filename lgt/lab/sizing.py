@@ -36,13 +36,15 @@ class NoisyOutcome:
 
 def noisy_outcome(circuit: ParametrizedCircuit, profile_noise: LabNoise, psi0: np.ndarray,
                   physical_mask: np.ndarray, params: np.ndarray | None = None,
-                  target: np.ndarray | None = None, trajectories: int = 256, seed: int = 0) -> NoisyOutcome:
-    """Noisy run of a register circuit (see :func:`noisy_fidelities` for the definitions)."""
+                  target: np.ndarray | None = None, trajectories: int = 256, seed: int = 0,
+                  density_limit: int | None = None) -> NoisyOutcome:
+    """Noisy run of a register circuit (see :func:`noisy_fidelities` for the definitions); density
+    matrix up to d^K = ``density_limit`` (default MAX_DENSITY_DIM) strings, else trajectories."""
     program = noisy_program(circuit, params, profile_noise.model, profile_noise.spec())
     phi = circuit.apply(params, psi0) if target is None else np.asarray(target, dtype=np.complex128)
     mask = np.asarray(physical_mask, dtype=bool)
     phi_p = phi * mask
-    if phi.size <= MAX_DENSITY_DIM:
+    if phi.size <= (MAX_DENSITY_DIM if density_limit is None else min(density_limit, MAX_DENSITY_DIM)):
         rho = simulate_density(program, psi0).rho
         fid = float(np.vdot(phi, rho @ phi).real)
         prob = np.clip(np.diagonal(rho).real, 0.0, None)

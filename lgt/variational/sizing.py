@@ -37,10 +37,13 @@ COLUMN_UNITS = {"duration_us": "us", "fit_seconds": "s", "reached_time": "lattic
 #: Stored in integer columns for "none" (no Trotter step count met the tolerance, no depth chosen),
 #: and in the noise-simulation columns of a depth that was not simulated.
 NONE = -1
-#: Largest register (d^K strings) that ``size`` simulates under noise (a bound of our choosing that
-#: keeps it to seconds per depth): exact density matrices up to circuits.density.MAX_DENSITY_DIM
-#: (3^7 qutrits, 5^5 ququints), beyond that NOISE_TRAJECTORIES Monte-Carlo wave functions.
-NOISE_SIZING_MAX_STRINGS = 3 ** 9
+#: Largest register (d^K strings) that ``size`` simulates under noise, and the largest simulated
+#: with an exact density matrix (beyond it NOISE_TRAJECTORIES Monte-Carlo wave functions). Bounds
+#: of our choosing that keep it to seconds per depth: a density matrix costs 16 d^{2K} bytes per
+#: event swept (K = 7 qutrits: minutes per circuit, docs/lab.md "Performance"), a trajectory
+#: 16 d^K.
+NOISE_SIZING_MAX_STRINGS = 3 ** 8
+NOISE_DENSITY_MAX_STRINGS = 3 ** 6
 #: Trajectories per depth beyond the density-matrix limit (statistical error about 1/√128 ≈ 0.09
 #: on the fidelities; common practice, no source).
 NOISE_TRAJECTORIES = 128
@@ -276,7 +279,8 @@ def noise_columns(basis: PhysicalBasis, settings: VariationalSettings, profile, 
     obs = StringObservables.for_model(basis.params)
     target = basis.to_register(traj.exact_states[-1])
     out = noisy_outcome(from_dict(doc), noise, basis.to_register(traj.exact_states[0]), obs.physical,
-                        target=target, trajectories=NOISE_TRAJECTORIES, seed=settings.seed)
+                        target=target, trajectories=NOISE_TRAJECTORIES, seed=settings.seed,
+                        density_limit=NOISE_DENSITY_MAX_STRINGS)
     error = predicted_observable_error(out.probabilities, np.abs(target) ** 2, obs, shots)[0]
     return dict(noisy_fidelity=out.fidelity, post_selected_fidelity=out.post_selected_fidelity,
                 discard_rate=out.discard_rate, predicted_observable_error=error)
