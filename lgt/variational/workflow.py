@@ -269,9 +269,10 @@ def size_tables(results: dict[str, SizingResult], costs) -> dict[str, Table]:
         {"family": np.array(list(results)),
          "layers": np.array([NONE if r.chosen is None else r.chosen for r in results.values()]),
          "best_layers_under_noise": np.array([NONE if r.best_under_noise is None else r.best_under_noise
-                                              for r in results.values()])},
+                                              for r in results.values()]),
+         "best_layers_under_noise_simulated": np.array([NONE if r.best_under_noise_simulated is None else r.best_under_noise_simulated for r in results.values()])},
         description="per family: least depth meeting the tolerance and depth of highest predicted total "
-                    "fidelity (-1: none up to max_layers); the first row is the configured family")
+                    "fidelity, and of least simulated predicted observable error (-1: none up to max_layers, or not simulated); the first row is the configured family")
     tables["trotter"] = rows_table(TrotterRow, primary.trotter, TROTTER_DESCRIPTION)
     tables["shots"] = Table({"observable": np.array(list(primary.shots), dtype=str),
                              "shots": np.array(list(primary.shots.values()), dtype=np.int64)},
