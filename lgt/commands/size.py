@@ -97,6 +97,7 @@ def _run(args: argparse.Namespace) -> int:
               f"predicted noise fidelity {t['noise_fidelity']:.4f}")
     shots = ", ".join(f"{k} {n}" for k, n in summary["shots"].items())
     print(f"shots for standard error {v['shots_error']}: {shots}")
+    print(f"depth of least predicted observable error under simulated noise: {summary['budget']['best_layers_under_noise_simulated']}")
     return status
 
 

@@ -18,7 +18,7 @@ VARIATIONAL_KEYS = ("family", "layers", "angles", "dt", "t_final", "tolerance", 
                     "maxiter", "restarts", "mode", "max_layers", "criterion", "observable_tolerance",
                     "entangler", "entangler_levels", "trotter_orders", "trotter_max_steps",
                     "compile", "compile_fidelity", "shots_error", "seed", "hardware_profile",
-                    "compare_families", "fast_fit")
+                    "compare_families", "fast_fit", "noise_sizing")
 #: Bounds of our choosing that keep every run finite (documented in the README):
 #: depth D, fitted steps T/dt, optimizer iterations, restarts and Trotter steps.
 MAX_LAYERS = 200
@@ -40,6 +40,10 @@ class VariationalSettings:
     ``fast_fit``: the fast step fits of :func:`lgt.variational.stepper.fit_trajectory` (stall
     stop, restarts only at stationary points) and the tighter depth abort of
     :func:`lgt.variational.sizing.size_depth`; ``false`` runs the plain fits (for comparisons).
+
+    ``noise_sizing``: ``fluxline size`` also simulates every depth's native circuit under the
+    profile's noise model (:func:`lgt.variational.sizing.noise_columns`; only for registers up to
+    :data:`lgt.variational.sizing.NOISE_SIZING_MAX_STRINGS` strings).
 
     ``step_tolerance`` defaults to tolerance / n_steps²: by the triangle inequality for the
     Bures angle, n steps of infidelity ε each keep 1 − F(T) ≤ n² ε even when the errors add
@@ -71,6 +75,7 @@ class VariationalSettings:
     hardware_profile: str | None = None
     compare_families: bool = True
     fast_fit: bool = True
+    noise_sizing: bool = True
 
     @property
     def n_steps(self) -> int:
@@ -149,7 +154,7 @@ def resolve_variational(config: Mapping[str, Any], levels: int) -> VariationalSe
     kw["trotter_orders"] = tuple(sorted({int(o) for o in orders}))
     kw["trotter_max_steps"] = as_int(section.get("trotter_max_steps", d.trotter_max_steps),
                                      p + "trotter_max_steps", minimum=1, maximum=MAX_TROTTER_STEPS)
-    for name in ("compile", "compare_families", "fast_fit"):
+    for name in ("compile", "compare_families", "fast_fit", "noise_sizing"):
         kw[name] = as_bool(section.get(name, getattr(d, name)), p + name)
     kw["compile_fidelity"] = as_fraction(section.get("compile_fidelity", d.compile_fidelity),
                                          p + "compile_fidelity")

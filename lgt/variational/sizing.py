@@ -34,8 +34,19 @@ CRITERION_OBSERVABLES = ("electric_field", "particle_density")
 #: Units of the result columns that have one (the others are counts or dimensionless).
 COLUMN_UNITS = {"duration_us": "us", "fit_seconds": "s", "reached_time": "lattice time", "time": "lattice time",
                 "step_seconds": "s"}
-#: Stored in integer columns for "none" (no Trotter step count met the tolerance, no depth chosen).
+#: Stored in integer columns for "none" (no Trotter step count met the tolerance, no depth chosen),
+#: and in the noise-simulation columns of a depth that was not simulated.
 NONE = -1
+#: Largest register (d^K strings) that ``size`` simulates under noise, and the largest simulated
+#: with an exact density matrix (beyond it NOISE_TRAJECTORIES Monte-Carlo wave functions). Bounds
+#: of our choosing that keep it to seconds per depth: a density matrix costs 16 d^{2K} bytes per
+#: event swept (K = 7 qutrits: minutes per circuit, docs/lab.md "Performance"), a trajectory
+#: 16 d^K.
+NOISE_SIZING_MAX_STRINGS = 3 ** 8
+NOISE_DENSITY_MAX_STRINGS = 3 ** 6
+#: Trajectories per depth beyond the density-matrix limit (statistical error about 1/√128 ≈ 0.09
+#: on the fidelities; common practice, no source).
+NOISE_TRAJECTORIES = 128
 
 
 @dataclass
@@ -66,6 +77,8 @@ class DepthRow(CostColumns):
 
     With the fidelity criterion a depth's fit stops as soon as it can no longer win;
     ``reached_time`` is then where it stopped (< T) and ``final_fidelity`` is taken there.
+    The last four columns come from the noisy simulation of the native circuit at
+    ``reached_time`` (:func:`noise_columns`; :data:`NONE` when not simulated).
     """
 
     layers: int
@@ -78,6 +91,10 @@ class DepthRow(CostColumns):
     fit_seconds: float
     meets_tolerance: bool
     reached_time: float
+    noisy_fidelity: float = NONE
+    post_selected_fidelity: float = NONE
+    discard_rate: float = NONE
+    predicted_observable_error: float = NONE
 
 
 @dataclass
@@ -99,6 +116,7 @@ class SizingResult:
     trotter: list[TrotterRow]
     shots: dict[str, int]
     trajectories: dict[int, VariationalTrajectory] = field(default_factory=dict)
+    best_under_noise_simulated: int | None = None
 
     def table(self) -> list[dict]:
         return [asdict(r) for r in self.rows]
@@ -237,6 +255,76 @@ def abort_thresholds(basis: PhysicalBasis, settings: VariationalSettings,
     return {D: max(tol, 1.0 - (1.0 - tol) * deepest / noise[D]) if noise[D] > 0 else tol for D in noise}
 
 
+def sizing_shots(settings: VariationalSettings) -> int:
+    """Shots per circuit assumed by the noise sizing: ⌈1 / shots_error²⌉ (the shots that give a
+    standard error ``shots_error`` on an observable of unit variance)."""
+    return int(np.ceil(1.0 / settings.shots_error ** 2 - 1e-9))
+
+
+def noise_columns(basis: PhysicalBasis, settings: VariationalSettings, profile, noise, layers: int,
+                  traj: VariationalTrajectory, shots: int) -> dict[str, float]:
+    """Noisy fidelity, post-selected fidelity, discard rate and predicted observable error of
+    depth ``layers`` at its last fitted time (``docs/variational.md``, "Sizing with noise").
+
+    The fitted angles are exported as the family's native register circuit (what a lab runs)
+    and simulated under ``noise`` (a :class:`~lgt.lab.noise.LabNoise`); fidelities are with the
+    exact state; the error is :func:`lgt.lab.sizing.predicted_observable_error` at ``shots``.
+    """
+    from circuits.export import from_dict
+    from lgt.lab.mitigation import StringObservables
+    from lgt.lab.sizing import noisy_outcome, predicted_observable_error
+
+    family = get_family(settings.family)
+    doc = family.export(basis, layers, LayerOptions.from_settings(settings), traj.params[-1], profile, "native")[0]
+    obs = StringObservables.for_model(basis.params)
+    target = basis.to_register(traj.exact_states[-1])
+    out = noisy_outcome(from_dict(doc), noise, basis.to_register(traj.exact_states[0]), obs.physical,
+                        target=target, trajectories=NOISE_TRAJECTORIES, seed=settings.seed,
+                        density_limit=NOISE_DENSITY_MAX_STRINGS)
+    error = predicted_observable_error(out.probabilities, np.abs(target) ** 2, obs, shots)[0]
+    return dict(noisy_fidelity=out.fidelity, post_selected_fidelity=out.post_selected_fidelity,
+                discard_rate=out.discard_rate, predicted_observable_error=error)
+
+
+def best_simulated(rows: list[DepthRow], t_final: float) -> int | None:
+    """Depth of least predicted observable error among the simulated rows that reached ``t_final``
+    (an aborted fit's error is taken before T and cannot compete); ties go to the shallower."""
+    done = [r for r in rows if r.predicted_observable_error != NONE and r.reached_time >= t_final * (1 - 1e-9)]
+    return min(done, key=lambda r: r.predicted_observable_error).layers if done else None
+
+
+def add_noise_sizing(basis: PhysicalBasis, settings: VariationalSettings, profile, rows: list[DepthRow],
+                     trajectories: dict[int, VariationalTrajectory],
+                     log: Callable[[str], None] | None = None) -> int | None:
+    """Fill the noise columns of ``rows`` (when ``noise_sizing`` and the register is small
+    enough) and return :func:`best_simulated`."""
+    if not settings.noise_sizing or basis.register_dimension > NOISE_SIZING_MAX_STRINGS:
+        if settings.noise_sizing and log:
+            log(f"noise sizing skipped: register of {basis.register_dimension:,} strings exceeds "
+                f"{NOISE_SIZING_MAX_STRINGS:,}")
+        return None
+    from lgt.lab.noise import lab_noise
+
+    from circuits.native import NotDecomposable
+
+    noise = lab_noise(settings.hardware_profile)
+    shots = sizing_shots(settings)
+    for row in rows:
+        try:
+            columns = noise_columns(basis, settings, profile, noise, row.layers, trajectories[row.layers], shots)
+        except NotDecomposable as exc:  # a lab could not run it either: leave the columns empty
+            if log:
+                log(f"noise sizing of {settings.family} layers skipped: no native export ({exc})")
+            return None
+        for name, value in columns.items():
+            setattr(row, name, value)
+        if log:
+            log(f"{settings.family} D = {row.layers} under noise: F {row.noisy_fidelity:.4f}, post-selected "
+                f"{row.post_selected_fidelity:.4f}, discarded {row.discard_rate:.3f}, "
+                f"predicted error {row.predicted_observable_error:.3e} at {shots} shots")
+    return best_simulated(rows, settings.t_final)
+
+
 def size_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSettings,
                costing: Costing, log: Callable[[str], None] | None = None,
                baselines: bool = True, fast: bool = True, warm_starts: bool | None = None) -> SizingResult:
@@ -275,12 +363,13 @@ def size_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSett
         if row.meets_tolerance:
             chosen = layers
     best = max(rows, key=lambda r: r.total_fidelity).layers if rows else None
+    simulated = add_noise_sizing(basis, settings, costing.profile, rows, trajectories, log)
     if not baselines:
-        return SizingResult(rows, chosen, best, [], {}, trajectories)
+        return SizingResult(rows, chosen, best, [], {}, trajectories, simulated)
     trotter = trotter_rows(basis, psi0, settings, costing.terms())
     reference = trajectories[chosen if chosen is not None else rows[-1].layers]
     shots = shots_needed(basis, reference.exact_states, settings.shots_error)
-    return SizingResult(rows, chosen, best, trotter, shots, trajectories)
+    return SizingResult(rows, chosen, best, trotter, shots, trajectories, simulated)
 
 
 def rows_table(row_type: type, rows: list, description: str) -> Table:

@@ -259,6 +259,7 @@ def run_size(resolved: Mapping[str, Any], log=None) -> RunResult:
     attributes = {
         "layers": NONE if result.chosen is None else result.chosen,
         "best_layers_under_noise": NONE if result.best_under_noise is None else result.best_under_noise,
+        "best_layers_under_noise_simulated": NONE if result.best_under_noise_simulated is None else result.best_under_noise_simulated,
         "family": settings.family, "cost_source": costing.source(settings.family), **_profile_attributes(profile),
         **_tolerance_attributes(settings, result.chosen is not None),
     }
@@ -278,9 +279,10 @@ def size_tables(results: dict[str, SizingResult], costs) -> dict[str, Table]:
         {"family": np.array(list(results)),
          "layers": np.array([NONE if r.chosen is None else r.chosen for r in results.values()]),
          "best_layers_under_noise": np.array([NONE if r.best_under_noise is None else r.best_under_noise
-                                              for r in results.values()])},
+                                              for r in results.values()]),
+         "best_layers_under_noise_simulated": np.array([NONE if r.best_under_noise_simulated is None else r.best_under_noise_simulated for r in results.values()])},
         description="per family: least depth meeting the tolerance and depth of highest predicted total "
-                    "fidelity (-1: none up to max_layers); the first row is the configured family")
+                    "fidelity, and of least simulated predicted observable error (-1: none up to max_layers, or not simulated); the first row is the configured family")
     tables["trotter"] = rows_table(TrotterRow, primary.trotter, TROTTER_DESCRIPTION)
     tables["shots"] = Table({"observable": np.array(list(primary.shots), dtype=str),
                              "shots": np.array(list(primary.shots.values()), dtype=np.int64)},
@@ -324,6 +326,7 @@ def size_summary_dict(result: RunResult) -> dict[str, Any]:
         "table": table,
         "trotter": trotter_summary(result),
         "budget": {"best_layers_under_noise": none(a["best_layers_under_noise"]),
+                   "best_layers_under_noise_simulated": none(a.get("best_layers_under_noise_simulated", NONE)),
                    "rows": [{"layers": r["layers"], "noise_fidelity": r["noise_fidelity"],
                              "total_fidelity": r["total_fidelity"]} for r in table]},
         "shots": {r["observable"]: r["shots"] for r in t["shots"].rows()},
