@@ -27,6 +27,7 @@ from lgt.io import read_run_file, write_run_file
 from lgt.results import RunResult, TimeSeries
 from lgt.sweep import list_runs, load_sweep, run_sweep
 from lgt.sweep.store import parts_dir
+from sweep_configs import meson_evolve_sweep
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -164,22 +165,7 @@ def test_nine_thousand_stored_times_are_saved(tmp_path):
     np.testing.assert_array_equal(back.series["energy"].times, result.series["energy"].times)
 
 
-LONG_EVOLVE = '''
-[model]
-sites = 4
-levels = 3
-[initial]
-kind = "meson"
-sites = [1, 2]
-[evolution]
-t_final = 0.9
-dt = 0.0001
-observables = ["energy"]
-[sweep]
-task = "evolve"
-[sweep.grid]
-"model.mass" = [0.5]
-'''
+LONG_EVOLVE = meson_evolve_sweep(0.9, 0.0001, ["energy"], '"model.mass" = [0.5]')
 
 
 def test_sweep_of_an_evolution_with_nine_thousand_times(tmp_path):

@@ -18,6 +18,7 @@ from lgt.results import RunResult, Table
 from lgt.signals import Interrupted, deferred, stop_on_signals
 from lgt.sweep import load_sweep, run_sweep, to_xarray
 from lgt.sweep.executors import ProcessPoolRunner, SerialExecutor
+from sweep_configs import meson_evolve_sweep
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -46,22 +47,9 @@ def test_table_round_trip_as_an_hdf5_group(tmp_path):
     assert back.units == {"duration": "us"} and back.description == "one row per circuit depth"
 
 
-EVOLVE = tomllib.loads('''
-[model]
-sites = 4
-levels = 3
-[initial]
-kind = "meson"
-sites = [1, 2]
-[evolution]
-t_final = 1.0
-dt = 0.25
-observables = ["loschmidt_echo", "electric_field", "occupation", "charge_correlation"]
-[sweep]
-task = "evolve"
-[sweep.grid]
-"model.mass" = [0.3, 0.8]
-''')
+EVOLVE = tomllib.loads(meson_evolve_sweep(
+    1.0, 0.25, ["loschmidt_echo", "electric_field", "occupation", "charge_correlation"],
+    '"model.mass" = [0.3, 0.8]'))
 
 
 def test_xarray_has_named_dimensions_coordinates_and_units(tmp_path):

@@ -24,25 +24,12 @@ from lgt.sweep.executors import MAX_ATTEMPTS, ProcessPoolRunner, WorkerLost
 from lgt.sweep.pinning import single_thread_environ
 
 import fault_helpers
+from sweep_configs import meson_evolve_sweep
 
 # 8 evolve runs of ~1 s each (N = 4, d = 3, 6 physical states, 801 stored times): long enough
 # that a signal sent after two complete runs lands while the others are still running.
-SWEEP = '''
-[model]
-sites = 4
-levels = 3
-[initial]
-kind = "meson"
-sites = [1, 2]
-[evolution]
-t_final = 8.0
-dt = 0.01
-observables = ["loschmidt_echo"]
-[sweep]
-task = "evolve"
-[sweep.grid]
-"model.mass" = [0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8]
-'''
+SWEEP = meson_evolve_sweep(8.0, 0.01, ["loschmidt_echo"],
+                           '"model.mass" = [0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8]')
 POINTS = 8
 
 

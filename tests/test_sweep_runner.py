@@ -16,6 +16,7 @@ from lgt.sweep import list_runs, load_sweep, run_sweep, to_xarray
 from lgt.sweep.plan import expand_sweep
 from lgt.sweep.store import SweepStore, parts_dir
 from lgt.tasks import register_task, validate_spectrum
+from sweep_configs import meson_evolve_sweep
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -225,23 +226,8 @@ def test_xarray_grid_and_runs_command(tmp_path, capsys):
 
 def test_evolve_sweep_stores_h5md_series(tmp_path):
     pytest.importorskip("lgt.evolution")
-    cfg = _cfg('''
-[model]
-sites = 4
-levels = 3
-[initial]
-kind = "meson"
-sites = [1, 2]
-[evolution]
-t_final = 1.0
-dt = 0.25
-observables = ["loschmidt_echo", "electric_field"]
-[sweep]
-task = "evolve"
-[sweep.zip]
-"model.mass" = [0.3, 0.8]
-"initial.sites" = [[1, 2], [0, 1]]
-''')
+    cfg = _cfg(meson_evolve_sweep(1.0, 0.25, ["loschmidt_echo", "electric_field"],
+                                  '"model.mass" = [0.3, 0.8]\n"initial.sites" = [[1, 2], [0, 1]]', table="zip"))
     out = tmp_path / "ev.h5"
     assert run_sweep(cfg, out, progress=False).completed == 2
     data = load_sweep(out)
