@@ -196,7 +196,7 @@ class SweepStore:
         started = time.perf_counter()
         reserve = 2 * sum(p.stat().st_size for p in parts) + 2**20  # copies + HDF5 slack
         with atomic_h5(self.path, copy_from=self.path, follow=False, reserve=reserve) as f:
-            f.attrs["fluxline_layout"] = LAYOUT_VERSION  # layout 2 reads layout 1 groups
+            f.attrs["fluxline_layout"] = LAYOUT_VERSION  # this layout's readers read the groups of every older layout
             runs = f.require_group("runs")
             for part in parts:
                 self._merge_part(part, runs)
