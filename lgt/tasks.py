@@ -87,7 +87,7 @@ _MODEL_RUN = ("model", "initial", "evolution", "variational")
 #: The task table: name → where its validator and runner live and which sections it reads.
 TASKS: dict[str, Task] = {t.name: t for t in (
     Task("spectrum", ("model", "spectrum"), ("model",), "lgt.tasks", "validate_spectrum", "run_spectrum"),
-    Task("potential", ("model", "potential"), ("model",), "lgt.spectroscopy",
+    Task("potential", ("model", "potential"), ("model",), "lgt.potential",
          "validate_potential", "run_potential"),
     Task("evolve", ("model", "initial", "evolution"), ("model", "evolution"), "lgt.evolution",
          "validate_evolution_config", "run_evolution"),

@@ -160,7 +160,7 @@ def bad_configs(draw, command: str):
 def _all_keys(section: str) -> set[str]:
     from lgt.evolution import EVOLUTION_KEYS
     from lgt.model import MODEL_KEYS
-    from lgt.spectroscopy import POTENTIAL_KEYS
+    from lgt.potential import POTENTIAL_KEYS
     from lgt.sweep.plan import SWEEP_KEYS
     from lgt.variational.settings import VARIATIONAL_KEYS
 

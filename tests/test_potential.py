@@ -7,7 +7,7 @@ import pytest
 
 from lgt.errors import ConfigError
 from lgt.model import ModelParams
-from lgt.spectroscopy import fit_string, meson_masses, resolve_potential, static_pair_sites, static_potential
+from lgt.potential import fit_string, meson_masses, resolve_potential, static_pair_sites, static_potential
 
 
 @pytest.mark.parametrize("J", [1.0, 0.7])
