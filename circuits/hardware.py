@@ -46,7 +46,7 @@ if sys.version_info >= (3, 11):
 else:  # pragma: no cover
     import tomli as tomllib
 
-__all__ = ["FORMAT_VERSION", "GATE_KEYS", "GateSpec", "HardwareProfile", "ProfileError", "hardware_key",
+__all__ = ["FORMAT_VERSION", "GATE_KEYS", "GateFigures", "HardwareProfile", "ProfileError", "hardware_key",
            "load_profile", "BUILTIN_PROFILE"]
 
 FORMAT_VERSION = 2
@@ -80,7 +80,7 @@ class ProfileError(ValueError):
 
 
 @dataclass(frozen=True)
-class GateSpec:
+class GateFigures:
     """Duration (microseconds), fidelity, the source of both, and the level pair (``ms``,
     ``light_shift``)."""
 
@@ -97,14 +97,14 @@ def hardware_key(gate: Gate) -> str:
 
 @dataclass(frozen=True)
 class HardwareProfile:
-    """Named set of :class:`GateSpec` by key, plus where it was read from.
+    """Named set of :class:`GateFigures` by key, plus where it was read from.
 
     ``path`` is the file (``builtin:...`` for the shipped default), ``sha256`` the hash of its
     text, ``noise_table`` the raw ``[noise]`` table (not validated here).
     """
 
     name: str
-    gates: dict[str, GateSpec]
+    gates: dict[str, GateFigures]
     path: str = ""
     sha256: str = ""
     noise_table: dict = field(default_factory=dict)
@@ -126,14 +126,14 @@ class HardwareProfile:
         """Whether the machine has this gate (directly or through a version-1 stand-in)."""
         return key in self.gates or any(k in self.gates for k in FALLBACK.get(key, ()))
 
-    def spec_for(self, key: str) -> GateSpec:
+    def spec_for(self, key: str) -> GateFigures:
         """Spec of a profile entry (``KeyError`` naming the missing entry)."""
         for k in (key,) + FALLBACK.get(key, ()):
             if k in self.gates:
                 return self.gates[k]
         raise KeyError(f"hardware profile {self.name!r} has no entry for {key!r}")
 
-    def spec(self, gate: Gate) -> GateSpec:
+    def spec(self, gate: Gate) -> GateFigures:
         """Spec of a gate."""
         return self.spec_for(gate.hardware_key)
 
@@ -206,7 +206,7 @@ class HardwareProfile:
         return cls(name, gates, path, sha256, dict(noise))
 
 
-def _gate_spec(where: str, key: str, val: Any) -> GateSpec:
+def _gate_spec(where: str, key: str, val: Any) -> GateFigures:
     if key not in GATE_KEYS:
         raise ProfileError(where, val, f"unknown gate (known: {', '.join(k for k in GATE_KEYS if k != 'phase2')})")
     if not isinstance(val, Mapping):
@@ -236,7 +236,7 @@ def _gate_spec(where: str, key: str, val: Any) -> GateSpec:
                                                                and x >= 0 for x in lv) or lv[0] == lv[1]):
             raise ProfileError(f"{where}.levels", lv, "must be two different levels [j, k] >= 0")
         levels = (min(lv), max(lv))
-    return GateSpec(numbers["duration_us"], numbers["fidelity"], source, levels)
+    return GateFigures(numbers["duration_us"], numbers["fidelity"], source, levels)
 
 
 def load_profile(path: str | Path | None = None, relative_to: str | Path | None = None) -> HardwareProfile:

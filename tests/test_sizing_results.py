@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 import scipy.linalg as sla
 
-from circuits.hardware import GateSpec, HardwareProfile, load_profile
+from circuits.hardware import GateFigures, HardwareProfile, load_profile
 from lgt.basis import PhysicalBasis
 from lgt.hamiltonian import build_hamiltonian
 from lgt.io import read_run_file, write_run_file
@@ -90,7 +90,7 @@ def test_abort_thresholds_follow_the_budget_bound(basis):
     # derivation in abort_thresholds' docstring, checked with independent arithmetic: every gate
     # of fidelity f, so F_noise(D) = f^(gates per layer * D)
     f = 0.99
-    profile = HardwareProfile("uniform", {k: GateSpec(1.0, f) for k in ("rotation", "phase", "ms", "phase2", "generator")})
+    profile = HardwareProfile("uniform", {k: GateFigures(1.0, f) for k in ("rotation", "phase", "ms", "phase2", "generator")})
     settings = settings_of(family="hardware", max_layers=4, tolerance=0.01)
     costing = Costing(profile, {})
     per_layer = len(depth_ansatz(basis, settings, 1).circuit.ops)

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from circuits.export import from_dict
-from circuits.hardware import GateSpec, HardwareProfile
+from circuits.hardware import GateFigures, HardwareProfile
 from lgt.basis import PhysicalBasis
 from lgt.errors import ConfigError
 from lgt.model import ModelParams
@@ -90,7 +90,7 @@ def test_product_of_fidelities_agrees_with_depolarizing_simulation(small_basis):
     # qutip in tests/circuits/test_circ_stop_and_noise.py). To first order in the gate errors the
     # simulated infidelity lies between (1 - 1/d) and 1 times the product-rule prediction: a
     # depolarizing error on D >= d levels returns the state with probability at most 1/D.
-    profile = HardwareProfile("test", {k: GateSpec(1.0, f) for k, f in
+    profile = HardwareProfile("test", {k: GateFigures(1.0, f) for k, f in
                                        {"rotation": 0.999, "phase": 0.9995, "ms": 0.995, "phase2": 0.995}.items()})
     ansatz = make_ansatz(small_basis, "hardware", 2, spec=VariationalSettings().native_spec())
     params = np.random.default_rng(5).normal(scale=0.4, size=ansatz.n_params)
