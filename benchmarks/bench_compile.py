@@ -19,7 +19,7 @@ import statistics
 import tempfile
 import time
 
-from circuits.blas_threads import single_threaded_blas
+from fluxline_threads import single_threaded_blas
 from circuits.native import NativeGateSet, block_fidelity, exponential_block
 from lgt.hamiltonian import local_terms
 from lgt.model import ModelParams

@@ -18,7 +18,7 @@ from typing import NamedTuple, Sequence
 
 import numpy as np
 
-from .blas_threads import single_threaded_blas
+from fluxline_threads import single_threaded_blas
 from .fused import FusedRegisterCircuit
 from .gates import Gate, pairs_apply, pairs_backward
 from .register import Space, from_view, to_view
@@ -433,5 +433,5 @@ class ParametrizedCircuit:
     def unitary(self, params: Sequence[float] | None) -> np.ndarray:
         """Dense ``dim x dim`` matrix of the circuit (small spaces only; tests)."""
         eye = np.eye(self.space.dim, dtype=np.complex128)
-        with single_threaded_blas():  # many small products: threads only contend (see blas_threads)
+        with single_threaded_blas():  # many small products: threads only contend (see fluxline_threads)
             return self.apply(params, eye).T

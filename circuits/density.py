@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .blas_threads import single_threaded_blas
+from fluxline_threads import single_threaded_blas
 from .gates import DiagonalGate
 from .noise_program import DecoherenceEvent, DepolarizeEvent, GateEvent, NoisyProgram, PrepareEvent
 from .register import apply_diagonal, apply_local

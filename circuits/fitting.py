@@ -17,7 +17,7 @@ from typing import Callable
 import numpy as np
 from scipy.optimize import minimize
 
-from .blas_threads import single_threaded_blas
+from fluxline_threads import single_threaded_blas
 from .circuit import ParametrizedCircuit
 from .layers import NativeLayerSpec, native_brickwork
 
@@ -71,7 +71,7 @@ def fit_to_target(
         if stop_infidelity is not None and intermediate_result.fun <= stop_infidelity:
             raise StopIteration
 
-    with single_threaded_blas():  # the optimiser's small dense updates (see blas_threads)
+    with single_threaded_blas():  # the optimiser's small dense updates (see fluxline_threads)
         res = minimize(
             loss, p0, jac=True, method="L-BFGS-B", callback=reached,
             options={"maxiter": maxiter, "ftol": tol, "gtol": tol},

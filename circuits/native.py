@@ -37,7 +37,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.linalg as sla
 
-from .blas_threads import single_threaded_blas
+from fluxline_threads import single_threaded_blas
 from .circuit import ParametrizedCircuit
 from .gates import ControlledRotation, DiagonalGate, Gate, MSGate, TwoLevelRotation
 from .register import Space

@@ -26,7 +26,7 @@ import scipy.linalg as sla
 import scipy.sparse as sp
 from scipy.linalg.blas import zherk
 
-from circuits.blas_threads import single_threaded_blas
+from fluxline_threads import single_threaded_blas
 from lgt import gauss
 from lgt.basis import PhysicalBasis, staggering
 from lgt.errors import ConfigError

@@ -20,7 +20,7 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.linalg import LinearOperator, expm_multiply
 
-from circuits.blas_threads import single_threaded_blas
+from fluxline_threads import single_threaded_blas
 from lgt.chebyshev import LANCZOS_STEPS, ChebyshevPropagator, gershgorin_interval, lanczos_interval
 from lgt.kernels import THREADED_NONZEROS, SparseKernel
 from lgt.resources import CHUNK_BYTES

@@ -12,7 +12,7 @@ import scipy.linalg as sla
 from hypothesis import given, settings, strategies as st
 from scipy.stats import unitary_group
 
-from circuits.blas_threads import single_threaded_blas
+from fluxline_threads import single_threaded_blas
 from circuits.gates import ControlledRotation, DiagonalGate, MSGate, TwoLevelRotation
 from circuits.hardware import HardwareProfile, ProfileError, load_profile
 from circuits.native import NativeGateSet, exponential_block, givens

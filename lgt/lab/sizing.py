@@ -7,7 +7,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from circuits.blas_threads import single_threaded_blas
+from fluxline_threads import single_threaded_blas
 from circuits.circuit import ParametrizedCircuit
 from circuits.density import MAX_DENSITY_DIM, simulate_density
 from circuits.noise_program import noisy_program

@@ -19,7 +19,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from circuits.blas_threads import single_threaded_blas
+from fluxline_threads import single_threaded_blas
 from lgt.config import as_choice, as_int, check_keys
 from lgt.errors import ConfigError
 from lgt.model import ModelParams

@@ -30,7 +30,7 @@ from typing import Any, Callable, Mapping
 
 import numpy as np
 
-from circuits.blas_threads import single_threaded_blas
+from fluxline_threads import single_threaded_blas
 from lgt.config import as_float, as_int
 from lgt.errors import ConfigError, ResourceError
 from lgt.model import ModelParams

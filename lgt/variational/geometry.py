@@ -19,7 +19,7 @@ import weakref
 import numpy as np
 import scipy.sparse as sp
 
-from circuits.blas_threads import single_threaded_blas
+from fluxline_threads import single_threaded_blas
 from circuits.circuit import ParametrizedCircuit
 from circuits.register import apply_local
 
@@ -80,7 +80,7 @@ def mclachlan_velocity(circuit: ParametrizedCircuit, params: np.ndarray, psi0: n
     """θ̇ of McLachlan's variational principle, G θ̇ = Im(J†Hψ) − Im((J†ψ)⟨ψ|H|ψ⟩) (global phase
     projected out), solved with the pseudo-inverse of G (eigenvalues below ``rcond`` times the
     largest dropped). ``H`` acts on the circuit's space (lattice energy units; θ̇ per lattice time)."""
-    with single_threaded_blas():  # small dense products and eigensolves (see circuits.blas_threads)
+    with single_threaded_blas():  # small dense products and eigensolves (see fluxline_threads)
         psi, J = state_and_jacobian(circuit, params, psi0)
         h_psi = H @ psi
         a = J.conj().T @ psi

@@ -16,7 +16,7 @@ import numpy as np
 
 from scipy.optimize import minimize
 
-from circuits.blas_threads import single_threaded_blas
+from fluxline_threads import single_threaded_blas
 from circuits.fitting import FitResult, fit_to_target
 from lgt.hamiltonian import build_hamiltonian
 from lgt.propagation import ExactPropagator, evolve_states

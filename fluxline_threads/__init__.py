@@ -1,4 +1,5 @@
-"""Run OpenBLAS on one thread inside a block (per calling thread; restored afterwards).
+"""Thread limits shared by ``lgt`` and ``circuits`` (neither owns them): run OpenBLAS on one
+thread inside a block (per calling thread; restored afterwards).
 
 Small dense products, eigensolves and the L-BFGS-B updates of circuit fits are far slower with
 OpenBLAS threading than without, above all on a busy machine (measured: a 244 × 244 Hermitian
