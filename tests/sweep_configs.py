@@ -24,3 +24,20 @@ task = "evolve"
 [sweep.{table}]
 {axes.strip()}
 '''
+
+
+def spectrum_sweep(sites: int, count: int, axes: str, zip_axes: str = "") -> str:
+    """``[sweep] task = "spectrum"`` on a d = 3 chain of ``sites`` sites over the ``[sweep.grid]``
+    lines ``axes`` (and ``[sweep.zip]`` lines ``zip_axes``, if any)."""
+    text = f'''
+[model]
+sites = {sites}
+levels = 3
+[spectrum]
+count = {count}
+[sweep]
+task = "spectrum"
+[sweep.grid]
+{axes.strip()}
+'''
+    return text + (f"[sweep.zip]\n{zip_axes.strip()}\n" if zip_axes else "")

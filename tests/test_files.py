@@ -27,24 +27,14 @@ from lgt.io import read_run_file, write_run_file
 from lgt.results import RunResult, TimeSeries
 from lgt.sweep import list_runs, load_sweep, run_sweep
 from lgt.sweep.store import parts_dir
-from sweep_configs import meson_evolve_sweep
+from sweep_configs import meson_evolve_sweep, spectrum_sweep
 
 if sys.version_info >= (3, 11):
     import tomllib
 else:  # pragma: no cover
     import tomli as tomllib
 
-SPECTRUM = tomllib.loads('''
-[model]
-sites = 4
-levels = 3
-[spectrum]
-count = 3
-[sweep]
-task = "spectrum"
-[sweep.grid]
-"model.mass" = [0.1, 0.5, 0.9]
-''')
+SPECTRUM = tomllib.loads(spectrum_sweep(4, 3, '"model.mass" = [0.1, 0.5, 0.9]'))
 
 
 def _result(n_times: int = 5) -> RunResult:

@@ -10,26 +10,15 @@ import pytest
 from lgt.errors import ConfigError
 from lgt.sweep import list_runs, load_sweep, run_sweep
 from lgt.sweep.executors import DaskRunner, ProcessPoolRunner, SerialExecutor, make_executor
+from sweep_configs import spectrum_sweep
 
 if sys.version_info >= (3, 11):
     import tomllib
 else:  # pragma: no cover
     import tomli as tomllib
 
-CONFIG = tomllib.loads('''
-[model]
-sites = 8
-levels = 3
-[spectrum]
-count = 5
-[sweep]
-task = "spectrum"
-[sweep.grid]
-"model.mass" = [0.2, 0.6]
-[sweep.zip]
-"model.coupling" = [0.5, 1.0, 2.0]
-"model.theta" = [0.0, 1.0, 2.0]
-''')
+CONFIG = tomllib.loads(spectrum_sweep(8, 5, '"model.mass" = [0.2, 0.6]',
+                                      '"model.coupling" = [0.5, 1.0, 2.0]\n"model.theta" = [0.0, 1.0, 2.0]'))
 
 
 @pytest.fixture(scope="module")

@@ -19,31 +19,12 @@ from lgt.config import load_config
 from lgt.sweep import list_runs, load_sweep, run_sweep
 from lgt.sweep.executors import ProcessPoolRunner
 from lgt.sweep.pinning import single_thread_environ
+from sweep_configs import spectrum_sweep
 
-HEAVY = '''
-[model]
-sites = 14
-levels = 3
-[spectrum]
-count = 3
-[sweep]
-task = "spectrum"
-[sweep.grid]
-"model.mass" = [0.1, 0.3, 0.5, 0.7, 0.9]
-'''
+HEAVY = spectrum_sweep(14, 3, '"model.mass" = [0.1, 0.3, 0.5, 0.7, 0.9]')
 
-LIGHT = '''
-[model]
-sites = 8
-levels = 3
-[spectrum]
-count = 3
-[sweep]
-task = "spectrum"
-[sweep.grid]
-"model.mass" = [0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 0.9, 1.0, 1.1, 1.2, 1.3, 1.4, 1.5]
-"model.coupling" = [0.5, 1.0, 1.5, 2.0]
-'''
+LIGHT = spectrum_sweep(8, 3, '"model.mass" = [0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 0.9, 1.0, 1.1, 1.2, 1.3, 1.4, 1.5]\n'
+                          '"model.coupling" = [0.5, 1.0, 1.5, 2.0]')
 
 
 def _start(config: Path, out: Path) -> subprocess.Popen:

@@ -16,25 +16,14 @@ from lgt.sweep import list_runs, load_sweep, run_sweep, to_xarray
 from lgt.sweep.plan import expand_sweep
 from lgt.sweep.store import SweepStore, parts_dir
 from lgt.tasks import register_task, validate_spectrum
-from sweep_configs import meson_evolve_sweep
+from sweep_configs import meson_evolve_sweep, spectrum_sweep
 
 if sys.version_info >= (3, 11):
     import tomllib
 else:  # pragma: no cover
     import tomli as tomllib
 
-BASE = '''
-[model]
-sites = 6
-levels = 3
-[spectrum]
-count = 4
-[sweep]
-task = "spectrum"
-[sweep.grid]
-"model.mass" = [0.1, 0.5, 0.9]
-"model.coupling" = [1.0, 2.0]
-'''
+BASE = spectrum_sweep(6, 4, '"model.mass" = [0.1, 0.5, 0.9]\n"model.coupling" = [1.0, 2.0]')
 
 
 def _cfg(text: str = BASE) -> dict:
