@@ -1,12 +1,20 @@
 """Bytes moved per Chebyshev step against a measured copy bandwidth, in one run.
 
 One step T_{k+1} = 2X T_k − T_{k−1} on the physical-subspace H (w = 1, m = 0.5, J = 1, d = 3)
-must at least read the CSR arrays once (8 B value + 4 B column index per non-zero, 4 B per row
-pointer) and the vectors x, prev and write out (3 × 8 B per row for a real state): that is the
-bandwidth bound, bytes / (copy bandwidth), with the copy bandwidth measured by ``np.copyto`` of
-an array of the same size as H's arrays (read + write counted), interleaved with the steps.
-Three routes: the fused kernel (``lgt.kernels``, real vector), and the previous route — scipy's
-product on the (dim, 2) real view of a complex state followed by the vector algebra.
+must at least read the matrix once and x, prev and write out (3 × 8 B per row and column).
+Two byte counts, each turned into a bound by the copy bandwidth of ``np.copyto`` (read + write
+counted) on an array of that many bytes, measured interleaved with the steps:
+
+* **plain CSR**: 8 B value + 4 B column index per non-zero, 4 B per row pointer — the bound of
+  one ordinary CSR product;
+* **pattern**: what the kernel actually moves when H has one off-diagonal value
+  (:func:`lgt.kernels.pattern_of`): 4 B per off-diagonal index, 4 B row pointer and 8 B
+  diagonal per row.
+
+Routes timed (CPU time of the calling thread, medians): the fused kernel on the pattern format
+and on the plain CSR (one real column, a real state), the pattern kernel on two columns read
+rotated (the step of a complex state), and scipy's product on the (dim, 2) real view of a
+complex state followed by the vector algebra (the route before the fused kernels).
 
 Usage::
 
@@ -26,10 +34,11 @@ from _common import comparison_parser, lattice_hamiltonian
 from lgt.kernels import SparseKernel
 
 
-def _timed(fn) -> float:
-    t0 = time.perf_counter()
+def _timed(fn, threads: int) -> float:
+    clock = time.thread_time if threads == 1 else time.perf_counter  # CPU time when single-threaded
+    t0 = clock()
     fn()
-    return time.perf_counter() - t0
+    return clock() - t0
 
 
 def main() -> None:
@@ -40,14 +49,19 @@ def main() -> None:
     for N in args.sizes:
         H = lattice_hamiltonian(N)
         dim = H.shape[0]
-        kernel = SparseKernel(H, args.threads, compiled=True)
+        pattern = SparseKernel(H, args.threads, compiled=True)
+        plain = SparseKernel(H, args.threads, compiled=True, pattern=False)
         rng = np.random.default_rng(0)
         x, prev = rng.normal(size=(dim, 1)), rng.normal(size=(dim, 1))
         out = np.empty_like(x)
         z, zprev = rng.normal(size=(dim, 2)), rng.normal(size=(dim, 2))
-        nbytes = H.data.nbytes + H.indices.nbytes + H.indptr.nbytes + 3 * x.nbytes
-        src = np.ones(nbytes // 16)
+        zout = np.empty_like(z)
+        csr_bytes = plain.bytes_per_product()
+        pattern_bytes = pattern.bytes_per_product()
+        src = np.ones(csr_bytes // 16)
         dst = np.ones_like(src)
+        src_p = np.ones(pattern_bytes // 16)
+        dst_p = np.ones_like(src_p)
 
         def old_step():  # scipy product on the complex state's real view + vector algebra
             hv = H @ z
@@ -56,33 +70,52 @@ def main() -> None:
             hv *= 2.0
             hv -= zprev
 
-        kernel.fused(x, prev, out, 0.1, -0.01, 1.0)
-        fused, copy, old, loads = [], [], [], []
+        routes = {
+            "pattern": lambda: pattern.fused(x, prev, out, 0.1, -0.01, 1.0),
+            "csr": lambda: plain.fused(x, prev, out, 0.1, -0.01, 1.0),
+            "pattern_complex": lambda: pattern.fused(z, zprev, zout, 0.1, -0.01, 1.0, rotate=1),
+            "copy_csr": lambda: np.copyto(dst, src),
+            "copy_pattern": lambda: np.copyto(dst_p, src_p),
+            "old": old_step,
+        }
+        for fn in routes.values():
+            fn()
+        times = {name: [] for name in routes}
+        loads = []
         for _ in range(args.repeats):
             loads.append(os.getloadavg()[0])
-            fused.append(_timed(lambda: kernel.fused(x, prev, out, 0.1, -0.01, 1.0)))
-            copy.append(_timed(lambda: np.copyto(dst, src)))
-            old.append(_timed(old_step))
-        kernel.close()
-        bandwidth = 2 * src.nbytes / np.median(copy)
-        bound = nbytes / bandwidth
-        row = {"sites": N, "dimension": dim, "nonzeros": int(H.nnz), "bytes_per_step": int(nbytes),
-               "copy_bandwidth_gbs": bandwidth / 1e9, "bound_ms": 1e3 * bound,
-               "fused_ms": 1e3 * float(np.median(fused)), "old_route_ms": 1e3 * float(np.median(old)),
-               "threads": args.threads, "load": float(np.median(loads))}
-        row["fused_over_bound"] = row["fused_ms"] / row["bound_ms"]
-        row["old_over_bound"] = row["old_route_ms"] / row["bound_ms"]
+            for name, fn in routes.items():
+                times[name].append(_timed(fn, args.threads))
+        pattern.close()
+        plain.close()
+        med = {name: float(np.median(v)) for name, v in times.items()}
+        bw_csr = 2 * src.nbytes / med["copy_csr"]
+        bw_pattern = 2 * src_p.nbytes / med["copy_pattern"]
+        row = {"sites": N, "dimension": dim, "nonzeros": int(H.nnz),
+               "csr_bytes": int(csr_bytes), "pattern_bytes": int(pattern_bytes),
+               "copy_bandwidth_gbs": bw_csr / 1e9, "copy_bandwidth_pattern_gbs": bw_pattern / 1e9,
+               "csr_bound_ms": 1e3 * csr_bytes / bw_csr, "pattern_bound_ms": 1e3 * pattern_bytes / bw_pattern,
+               "pattern_ms": 1e3 * med["pattern"], "csr_ms": 1e3 * med["csr"],
+               "pattern_complex_ms": 1e3 * med["pattern_complex"], "old_route_ms": 1e3 * med["old"],
+               "threads": args.threads, "repeats": args.repeats, "load": float(np.median(loads))}
+        row["pattern_over_own_bound"] = row["pattern_ms"] / row["pattern_bound_ms"]
+        row["pattern_over_csr_bound"] = row["pattern_ms"] / row["csr_bound_ms"]
+        row["csr_over_csr_bound"] = row["csr_ms"] / row["csr_bound_ms"]
         rows.append(row)
         print(json.dumps(row), file=sys.stderr)
     if args.json:
         print(json.dumps(rows))
         return
-    print(f"{'N':>3} {'dim':>8} {'MB/step':>8} {'copy GB/s':>9} {'bound ms':>8} {'fused ms':>8} "
-          f"{'×bound':>6} {'old ms':>7} {'×bound':>6} {'load':>5}")
+    print(f"threads: {args.threads}; CPU time of the calling thread" if args.threads == 1 else
+          f"threads: {args.threads}; wall time")
+    print(f"{'N':>3} {'dim':>8} {'MB CSR/pat':>11} {'GB/s':>5} {'bound CSR/pat ms':>16} {'pattern ms':>10} "
+          f"{'×own':>5} {'×CSR':>5} {'CSR ms':>7} {'×CSR':>5} {'cplx ms':>7} {'old ms':>7} {'load':>5}")
     for r in rows:
-        print(f"{r['sites']:>3} {r['dimension']:>8} {r['bytes_per_step'] / 1e6:>8.1f} {r['copy_bandwidth_gbs']:>9.1f} "
-              f"{r['bound_ms']:>8.2f} {r['fused_ms']:>8.2f} {r['fused_over_bound']:>6.1f} "
-              f"{r['old_route_ms']:>7.2f} {r['old_over_bound']:>6.1f} {r['load']:>5.1f}")
+        print(f"{r['sites']:>3} {r['dimension']:>8} {r['csr_bytes'] / 1e6:>5.1f}/{r['pattern_bytes'] / 1e6:<5.1f} "
+              f"{r['copy_bandwidth_gbs']:>5.1f} {r['csr_bound_ms']:>7.2f}/{r['pattern_bound_ms']:<8.2f} "
+              f"{r['pattern_ms']:>10.2f} {r['pattern_over_own_bound']:>5.1f} {r['pattern_over_csr_bound']:>5.1f} "
+              f"{r['csr_ms']:>7.2f} {r['csr_over_csr_bound']:>5.1f} {r['pattern_complex_ms']:>7.2f} "
+              f"{r['old_route_ms']:>7.2f} {r['load']:>5.1f}")
 
 
 if __name__ == "__main__":

@@ -11,10 +11,13 @@ stand-in (reported as such).
 
 Each (size, side, repeat) runs in its own subprocess, one thread (``OMP_NUM_THREADS=1``, numba
 and BLAS alike) unless ``--threads``; the sides alternate and the medians are compared.
-Reported: the evolution phase (Fluxline: everything after the build of H, Lanczos bound,
-observables and drift checks included; library: set-up of the propagator plus stepping and its
-observables), and each process's peak resident memory (Fluxline's includes building H; the
-library side builds H with Fluxline's builder, which is not timed).
+Reported: the evolution phase in wall seconds (Fluxline: everything after the build of H,
+Lanczos bound, observables and drift checks included; library: set-up of the propagator plus
+stepping and its observables), the CPU seconds of the whole process (``time.process_time``:
+build of H included on both sides, and on Fluxline's side its measurement thread — the number
+to trust on a shared machine, where wall time depends on the other jobs), and each process's
+peak resident memory (Fluxline's includes building H; the library side builds H with Fluxline's
+builder, which is not timed).
 
 Usage::
 
@@ -48,10 +51,11 @@ def fluxline_side(N: int, t_final: float, dt: float) -> dict:
 
     config = {"model": {"sites": N, **MODEL}, "initial": {"kind": "vacuum"},
               "evolution": {"t_final": t_final, "dt": dt}}
-    t0 = time.perf_counter()
+    c0, t0 = time.process_time(), time.perf_counter()
     run = run_evolution(config)
     total = time.perf_counter() - t0
     return {"evolve_s": run.timings["prepare"] + run.timings["evolve"], "total_s": total,
+            "cpu_s": time.process_time() - c0,
             "dimension": run.attributes["dimension"], "products": run.attributes["hamiltonian_products"],
             "entropy_stride": run.attributes["entropy_stride"],
             "observables": len(run.series), "peak_gib": _peak_gib(),
@@ -64,6 +68,7 @@ def library_side(N: int, t_final: float, dt: float) -> dict:
     from lgt.model import ModelParams
     from lgt.states import prepare_initial_state
 
+    c0 = time.process_time()
     params = ModelParams(sites=N, **MODEL)
     basis = PhysicalBasis(params)
     H = build_hamiltonian(basis).tocsr()
@@ -95,7 +100,8 @@ def library_side(N: int, t_final: float, dt: float) -> dict:
         if len(L) <= steps:
             psi = step(psi)
     evolve = time.perf_counter() - t0
-    return {"evolve_s": evolve, "library": library, "dimension": basis.dimension,
+    return {"evolve_s": evolve, "cpu_s": time.process_time() - c0, "library": library,
+            "dimension": basis.dimension,
             "peak_gib": _peak_gib(), "field_end": L[-1][0].tolist()}
 
 
@@ -139,6 +145,8 @@ def main() -> None:
         row = {"sites": N, "dimension": f[0]["dimension"], "library": q[0]["library"],
                "fluxline_s": float(np.median([r["evolve_s"] for r in f])),
                "library_s": float(np.median([r["evolve_s"] for r in q])),
+               "fluxline_cpu_s": float(np.median([r["cpu_s"] for r in f])),
+               "library_cpu_s": float(np.median([r["cpu_s"] for r in q])),
                "fluxline_all_s": [round(r["evolve_s"], 3) for r in f],
                "library_all_s": [round(r["evolve_s"], 3) for r in q],
                "fluxline_peak_gib": float(np.median([r["peak_gib"] for r in f])),
@@ -147,6 +155,7 @@ def main() -> None:
                "observables": f[0]["observables"], "max_field_deviation": dev,
                "load": float(np.median(loads))}
         row["ratio"] = row["library_s"] / row["fluxline_s"]
+        row["cpu_ratio"] = row["library_cpu_s"] / row["fluxline_cpu_s"]
         rows.append(row)
         print(json.dumps(row), file=sys.stderr)
     if args.json:
@@ -154,11 +163,13 @@ def main() -> None:
         return
     print(f"library: {rows[0]['library']}; threads per process: {args.threads or 'unset'}"
           f" (Fluxline: {args.fluxline_threads or args.threads or 'unset'})")
-    print(f"{'N':>3} {'dim':>8} {'Fluxline s':>10} {'library s':>10} {'ratio':>6} {'peak GiB F/L':>13} "
-          f"{'stride':>6} {'max|ΔL|':>8} {'load':>5}")
+    print(f"repeats: {args.repeats} (medians)")
+    print(f"{'N':>3} {'dim':>8} {'Fluxline s':>10} {'library s':>10} {'ratio':>6} {'CPU s F/L':>13} {'ratio':>6} "
+          f"{'peak GiB F/L':>13} {'stride':>6} {'max|ΔL|':>8} {'load':>5}")
     for r in rows:
         print(f"{r['sites']:>3} {r['dimension']:>8} {r['fluxline_s']:>10.2f} {r['library_s']:>10.2f} "
-              f"{r['ratio']:>6.2f} {r['fluxline_peak_gib']:>6.2f}/{r['library_peak_gib']:<6.2f} "
+              f"{r['ratio']:>6.2f} {r['fluxline_cpu_s']:>6.1f}/{r['library_cpu_s']:<6.1f} {r['cpu_ratio']:>6.2f} "
+              f"{r['fluxline_peak_gib']:>6.3f}/{r['library_peak_gib']:<6.3f} "
               f"{r['entropy_stride']:>6} {r['max_field_deviation']:>8.1e} {r['load']:>5.1f}")
 
 

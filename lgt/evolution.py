@@ -206,15 +206,18 @@ def run_evolution(config: Mapping[str, Any], progress: bool = False,
     H = build_hamiltonian(basis).tocsr()
     t1 = time.perf_counter()
     psi0 = prepare_initial_state(basis, resolved["initial"])
-    prop = ExactPropagator(H, method=ev.get("method", METHODS[0]))
+    # the propagator may hold H in its pattern format only: the CSR is freed here
+    prop = ExactPropagator(H, method=ev.get("method", METHODS[0]), keep_matrix=False)
+    nonzeros = int(H.nnz)
+    del H
     which = list(ev["observables"])
     internal = list(dict.fromkeys(which + ["energy", "norm"]))
-    observer = Observer(basis, H, reference=psi0, cut=ev["cut"], which=internal,
+    observer = Observer(basis, None, reference=psi0, cut=ev["cut"], which=internal,
                         matvec=prop.hamiltonian_matvec, energy=prop.energy)
     stride = 1
     if set(ENTROPIES) & set(which):
         lo, hi = prop.interval_for(float(times[-1]))
-        stride = entropy_stride(ev.get("entropy_stride", "auto"), basis, ev["cut"], times, H.nnz,
+        stride = entropy_stride(ev.get("entropy_stride", "auto"), basis, ev["cut"], times, nonzeros,
                                 0.5 * (hi - lo))
     entropy_at = np.zeros(times.size, dtype=bool)
     entropy_at[::stride] = True
@@ -265,7 +268,7 @@ def run_evolution(config: Mapping[str, Any], progress: bool = False,
               for name in which}
     attributes = {"dimension": basis.dimension, "register_dimension": basis.register_dimension,
                   "cut": int(ev["cut"]), "energy_drift": energy_drift, "norm_drift": norm_drift,
-                  "initial_energy": float(energy[0]), "hamiltonian_nonzeros": int(H.nnz),
+                  "initial_energy": float(energy[0]), "hamiltonian_nonzeros": nonzeros,
                   "entropy_stride": int(stride), "hamiltonian_products": int(prop.products)}
     return RunResult(task="evolve", parameters=dict(resolved), series=series,
                      arrays={"field_values": params.field_values},

@@ -1,10 +1,16 @@
 """One-pass kernels for the exact propagator and the observables (numba, numpy fallback).
 
-* :func:`fused_product` — ``out = a·(H x) + b·x − g·prev`` for real CSR H and real x, prev, out
+* :meth:`SparseKernel.fused` — ``out = a·(H x) + b·x − g·prev`` for real H and real x, prev, out
   of shape (dim, m): one Chebyshev step (a = 2/r, b = −2c/r, g = 1) in a single sweep over the
   matrix, written straight into ``out`` (no temporaries). Rows are split into blocks of equal
   non-zeros handled by a small thread pool; the numba kernel releases the GIL, so the blocks run
   in parallel without an OpenMP runtime (no spin-waiting threads on a shared machine).
+* The **pattern format** (:func:`pattern_of`): when every off-diagonal entry of H has one value w
+  (the truncated-link model: the link raising operator has unit elements, so every hopping entry
+  is w), H = diag + w·A with A a 0/1 pattern, stored as int32 column indices of the off-diagonal
+  entries plus the diagonal vector: 4 B per non-zero moved instead of 12 (value + index), and
+  about 40 % of the CSR's memory. Matrices with varying values (e.g. quantum-link √ factors) keep
+  the general CSR route.
 * :func:`quadratic_form` — Σ_i x_i·(H x)_i summed over columns, without storing H x.
 * :func:`state_moments` — in one sweep over a complex state: the norm, the per-link level
   histograms, the overlap with a reference, and joint histograms of byte-sized blocks of the
@@ -70,6 +76,91 @@ def _fused_rows(indptr, indices, data, x, prev, out, a, b, g, r0, r1):  # pragma
             out[i, c] = a * acc[c] + b * x[i, c] - g * prev[i, c]
 
 
+def _pattern_rows1(indptr, indices, diag, w, x, prev, out, a, b, g, r0, r1):  # pragma: no cover
+    # one real column; two partial sums per row break the chain of dependent additions (the
+    # sweep is bound by the latency of the gathered adds, not by bandwidth)
+    aw = a * w
+    for i in range(r0, r1):
+        s0 = 0.0
+        s1 = 0.0
+        p = indptr[i]
+        end = indptr[i + 1]
+        while p + 1 < end:
+            s0 += x[indices[p]]
+            s1 += x[indices[p + 1]]
+            p += 2
+        if p < end:
+            s0 += x[indices[p]]
+        out[i] = aw * (s0 + s1) + (a * diag[i] + b) * x[i] - g * prev[i]
+
+
+def _pattern_rows(indptr, indices, diag, w, x, prev, out, a, b, g, r0, r1):  # pragma: no cover
+    m = x.shape[1]
+    aw = a * w
+    acc = np.empty(m)
+    for i in range(r0, r1):
+        acc[:] = 0.0
+        for p in range(indptr[i], indptr[i + 1]):
+            j = indices[p]
+            for c in range(m):
+                acc[c] += x[j, c]
+        ad = a * diag[i] + b
+        for c in range(m):
+            out[i, c] = aw * acc[c] + ad * x[i, c] - g * prev[i, c]
+
+
+def _fused_rows_rot(indptr, indices, data, x, prev, out, a, b, g, s, r0, r1):  # pragma: no cover
+    # two columns (u, v), x rotated first: R x = s·(−v, u) (multiplication by ±i)
+    for i in range(r0, r1):
+        h0 = 0.0
+        h1 = 0.0
+        for p in range(indptr[i], indptr[i + 1]):
+            v = data[p]
+            j = indices[p]
+            h0 += v * x[j, 1]
+            h1 += v * x[j, 0]
+        out[i, 0] = -s * (a * h0 + b * x[i, 1]) - g * prev[i, 0]
+        out[i, 1] = s * (a * h1 + b * x[i, 0]) - g * prev[i, 1]
+
+
+def _pattern_rows_rot(indptr, indices, diag, w, x, prev, out, a, b, g, s, r0, r1):  # pragma: no cover
+    aw = a * w
+    for i in range(r0, r1):
+        h0 = 0.0
+        h1 = 0.0
+        for p in range(indptr[i], indptr[i + 1]):
+            j = indices[p]
+            h0 += x[j, 1]
+            h1 += x[j, 0]
+        ad = a * diag[i] + b
+        out[i, 0] = -s * (aw * h0 + ad * x[i, 1]) - g * prev[i, 0]
+        out[i, 1] = s * (aw * h1 + ad * x[i, 0]) - g * prev[i, 1]
+
+
+def _pattern_quadratic_rows(indptr, indices, diag, w, x, r0, r1):  # pragma: no cover - jitted
+    total = 0.0
+    m = x.shape[1]
+    if m == 2:  # (Re, Im) of a complex state: one pass over the pattern for both columns
+        for i in range(r0, r1):
+            h0 = 0.0
+            h1 = 0.0
+            for p in range(indptr[i], indptr[i + 1]):
+                j = indices[p]
+                h0 += x[j, 0]
+                h1 += x[j, 1]
+            x0 = x[i, 0]
+            x1 = x[i, 1]
+            total += (w * h0 + diag[i] * x0) * x0 + (w * h1 + diag[i] * x1) * x1
+        return total
+    for i in range(r0, r1):
+        for c in range(m):
+            s = 0.0
+            for p in range(indptr[i], indptr[i + 1]):
+                s += x[indices[p], c]
+            total += (w * s + diag[i] * x[i, c]) * x[i, c]
+    return total
+
+
 def _quadratic_rows(indptr, indices, data, x, r0, r1):  # pragma: no cover - jitted
     total = 0.0
     m = x.shape[1]
@@ -112,55 +203,157 @@ def _moments_rows(psi, levels, ref, occ_bytes, hist, marginal, joint, r0, r1):  
 
 
 # ---------------------------------------------------------------------- products
-def row_blocks(H: sp.csr_matrix, threads: int) -> list[tuple[int, int]]:
-    """Row ranges [r0, r1) holding about equal numbers of non-zeros (one per thread)."""
-    n = H.shape[0]
-    if threads <= 1 or H.nnz < THREADED_NONZEROS:
+def row_blocks(H: sp.csr_matrix | np.ndarray, threads: int) -> list[tuple[int, int]]:
+    """Row ranges [r0, r1) holding about equal numbers of non-zeros (one per thread).
+
+    ``H`` is a CSR matrix or its row-pointer array."""
+    indptr = H.indptr if sp.issparse(H) else np.asarray(H)
+    n, nnz = indptr.size - 1, int(indptr[-1])
+    if threads <= 1 or nnz < THREADED_NONZEROS:
         return [(0, n)]
-    targets = np.linspace(0, H.nnz, threads + 1)[1:-1]
-    cuts = np.searchsorted(H.indptr, targets).tolist()
+    targets = np.linspace(0, nnz, threads + 1)[1:-1]
+    cuts = np.searchsorted(indptr, targets).tolist()
     edges = [0] + [int(c) for c in cuts] + [n]
     return [(a, b) for a, b in zip(edges[:-1], edges[1:]) if b > a]
 
 
+def _index_type(n: int) -> type:
+    return np.int32 if n < 2 ** 31 - 1 else np.int64
+
+
+def pattern_of(H: sp.csr_matrix) -> tuple[np.ndarray, np.ndarray, np.ndarray, float] | None:
+    """(indptr, indices, diagonal, w) of the off-diagonal pattern of real CSR H, or None.
+
+    Not None when every stored off-diagonal entry equals one value w ≠ 0: then
+    H = diag(diagonal) + w·A, A the 0/1 matrix of (indptr, indices) (sorted column indices,
+    int32 while they fit). One pass over H's arrays; the pieces are new arrays.
+    """
+    n = H.shape[0]
+    if H.nnz == 0 or n != H.shape[1]:
+        return None
+    rows = np.repeat(np.arange(n, dtype=_index_type(n)), np.diff(H.indptr))
+    off = H.indices != rows
+    del rows
+    if not off.any():
+        return None
+    w = H.data[np.argmax(off)]
+    varying = H.data != w
+    varying &= off
+    if w == 0 or varying.any():
+        return None
+    del varying
+    itype = _index_type(int(np.count_nonzero(off)))
+    position = np.zeros(H.nnz + 1, dtype=itype)  # off-diagonal entries before each stored entry
+    np.cumsum(off, dtype=itype, out=position[1:])
+    indptr = position[H.indptr]
+    del position
+    indices = H.indices[off].astype(_index_type(n), copy=False)
+    diagonal = H.diagonal()
+    return indptr, indices, diagonal, float(w)
+
+
+def rotated(x: np.ndarray, sign: int) -> np.ndarray:
+    """sign·i·ψ on the (dim, 2) real columns (Re ψ, Im ψ): sign·(−x[:, 1], x[:, 0]) (a copy)."""
+    return np.ascontiguousarray(np.stack([-sign * x[:, 1], sign * x[:, 0]], axis=1))
+
+
 class SparseKernel:
-    """Real CSR H with its row blocks and threads, applied by the fused kernels.
+    """Real sparse H with its row blocks and threads, applied by the fused kernels.
 
     Parameters
     ----------
     H : real sparse matrix (converted to CSR with int32/int64 indices as stored).
     threads : worker threads (1: the calling thread only).
+    compiled : use the numba kernels (default: from :data:`NUMBA_NONZEROS` non-zeros on).
+    pattern : store H in the pattern format when its off-diagonal values allow
+        (:func:`pattern_of`; default: whenever the kernels are compiled).
+    keep_matrix : keep a reference to the CSR matrix. With False (pattern format only) the kernel
+        holds just the pattern, and :attr:`matrix` rebuilds the CSR when asked (the caller must
+        drop its own reference for the memory to be freed).
     """
 
-    def __init__(self, H: sp.spmatrix, threads: int = 1, compiled: bool | None = None) -> None:
+    def __init__(self, H: sp.spmatrix, threads: int = 1, compiled: bool | None = None,
+                 pattern: bool | None = None, keep_matrix: bool = True) -> None:
         H = sp.csr_matrix(H)
         if H.dtype != np.float64:
             H = H.astype(np.float64)
         H.sort_indices()
-        self.matrix = H
         self.compiled = HAVE_NUMBA and (H.nnz >= NUMBA_NONZEROS if compiled is None else compiled)
-        self.blocks = row_blocks(H, threads)
+        self._shape = H.shape
+        self.nnz = int(H.nnz)
+        self.pattern = pattern_of(H) if (self.compiled if pattern is None else pattern) else None
+        self._matrix = H if keep_matrix or self.pattern is None else None
+        self.blocks = row_blocks(self.pattern[0] if self.pattern is not None else H, threads)
         self.pool = ThreadPoolExecutor(len(self.blocks)) if len(self.blocks) > 1 else None
 
     @property
     def shape(self) -> tuple[int, int]:
-        return self.matrix.shape
+        return self._shape
+
+    @property
+    def matrix(self) -> sp.csr_matrix:
+        """H as CSR (rebuilt from the pattern when the kernel does not keep it)."""
+        if self._matrix is not None:
+            return self._matrix
+        indptr, indices, diagonal, w = self.pattern
+        off = sp.csr_matrix((np.full(indices.size, w), indices, indptr), shape=self._shape)
+        return sp.csr_matrix(off + sp.diags(diagonal))
+
+    def diagonal(self) -> np.ndarray:
+        """The diagonal of H."""
+        return self.pattern[2] if self.pattern is not None else self._matrix.diagonal()
+
+    def gershgorin(self) -> tuple[float, float]:
+        """[E_min, E_max] from the Gershgorin discs of H (rigorous outer bounds)."""
+        if self.pattern is None:
+            H = self._matrix
+            diag = H.diagonal()
+            radius = np.asarray(abs(H).sum(axis=1)).ravel() - np.abs(diag)
+        else:
+            indptr, _, diag, w = self.pattern
+            radius = abs(w) * np.diff(indptr)
+        return float(np.min(diag - radius)), float(np.max(diag + radius))
 
     def fused(self, x: np.ndarray, prev: np.ndarray, out: np.ndarray, a: float, b: float,
-              g: float) -> np.ndarray:
-        """out = a·(H x) + b·x − g·prev for real C-contiguous (dim, m) arrays; returns ``out``."""
-        H = self.matrix
+              g: float, rotate: int = 0) -> np.ndarray:
+        """out = a·(H x') + b·x' − g·prev for real C-contiguous (dim, m) arrays; returns ``out``.
+
+        x' = x, or for ``rotate`` = ±1 and m = 2 (columns Re, Im of a complex vector) x' = ±i x,
+        i.e. ±(−x[:, 1], x[:, 0]) (read rotated, no copy).
+        """
+        if rotate and x.shape[1] != 2:
+            raise ValueError("rotate needs two columns (Re, Im)")
         if not self.compiled:
+            if rotate:
+                x = rotated(x, rotate)
+            H = self.matrix
             np.multiply((H @ x[:, 0])[:, None] if x.shape[1] == 1 else H @ x, a, out=out)
             if b:
                 out += b * x
             if g:
                 out -= g * prev
             return out
-        kernel = _compiled("_fused_rows")
-        args = (H.indptr, H.indices, H.data, x, prev, out, float(a), float(b), float(g))
+        if rotate:
+            if self.pattern is not None:
+                kernel, arrays = _compiled("_pattern_rows_rot"), self.pattern
+            else:
+                H = self._matrix
+                kernel, arrays = _compiled("_fused_rows_rot"), (H.indptr, H.indices, H.data)
+            args = (*arrays, x, prev, out, float(a), float(b), float(g), float(rotate))
+        elif self.pattern is not None:
+            indptr, indices, diagonal, w = self.pattern
+            if x.shape[1] == 1:  # 1-D views: the single-column kernel
+                kernel = _compiled("_pattern_rows1")
+                x, prev, out_ = x.reshape(-1), prev.reshape(-1), out.reshape(-1)
+            else:
+                kernel, out_ = _compiled("_pattern_rows"), out
+            args = (indptr, indices, diagonal, w, x, prev, out_, float(a), float(b), float(g))
+        else:
+            H = self._matrix
+            kernel = _compiled("_fused_rows")
+            args = (H.indptr, H.indices, H.data, x, prev, out, float(a), float(b), float(g))
         if self.pool is None:
-            kernel(*args, 0, H.shape[0])
+            kernel(*args, 0, self._shape[0])
         else:
             list(self.pool.map(lambda blk: kernel(*args, *blk), self.blocks))
         return out
@@ -176,15 +369,28 @@ class SparseKernel:
 
     def quadratic(self, x: np.ndarray) -> float:
         """Σ_c x[:, c]ᵀ H x[:, c] for real (dim, m) x (⟨ψ|H|ψ⟩ for the real view of ψ)."""
-        H = self.matrix
-        x = np.ascontiguousarray(x, dtype=np.float64).reshape(H.shape[0], -1)
+        x = np.ascontiguousarray(x, dtype=np.float64).reshape(self._shape[0], -1)
         if not self.compiled:
-            return float(np.sum(x * (H @ x)))
-        kernel = _compiled("_quadratic_rows")
+            return float(np.sum(x * (self.matrix @ x)))
+        if self.pattern is not None:
+            kernel, arrays = _compiled("_pattern_quadratic_rows"), self.pattern
+        else:
+            H = self._matrix
+            kernel, arrays = _compiled("_quadratic_rows"), (H.indptr, H.indices, H.data)
         if self.pool is None:
-            return float(kernel(H.indptr, H.indices, H.data, x, 0, H.shape[0]))
-        parts = self.pool.map(lambda blk: kernel(H.indptr, H.indices, H.data, x, *blk), self.blocks)
+            return float(kernel(*arrays, x, 0, self._shape[0]))
+        parts = self.pool.map(lambda blk: kernel(*arrays, x, *blk), self.blocks)
         return float(sum(parts))
+
+    def bytes_per_product(self, columns: int = 1) -> int:
+        """Bytes one fused step must move at least: the matrix arrays read once, x and prev read
+        and out written once (8 B per entry)."""
+        if self.pattern is not None:
+            arrays = sum(a.nbytes for a in self.pattern[:3])
+        else:
+            H = self._matrix
+            arrays = H.data.nbytes + H.indices.nbytes + H.indptr.nbytes
+        return int(arrays + 3 * 8 * columns * self._shape[0])
 
     def close(self) -> None:
         if self.pool is not None:
@@ -267,5 +473,5 @@ def state_moments(psi: np.ndarray, levels: np.ndarray, d: int, reference: np.nda
             (marginal, joint) if occ_bytes is not None else None)
 
 
-__all__ = ["HAVE_NUMBA", "SparseKernel", "row_blocks", "state_moments", "occupation_bytes",
+__all__ = ["HAVE_NUMBA", "SparseKernel", "row_blocks", "pattern_of", "state_moments", "occupation_bytes",
            "occupation_products_from_histograms", "byte_bits"]

@@ -21,7 +21,7 @@ import scipy.sparse as sp
 from scipy.sparse.linalg import LinearOperator, expm_multiply
 
 from fluxline_threads import single_threaded_blas
-from lgt.chebyshev import LANCZOS_STEPS, ChebyshevPropagator, gershgorin_interval, lanczos_interval
+from lgt.chebyshev import LANCZOS_STEPS, ChebyshevPropagator, lanczos_interval
 from lgt.kernels import THREADED_NONZEROS, SparseKernel
 from lgt.resources import CHUNK_BYTES
 
@@ -61,7 +61,7 @@ class SchrodingerOperator(LinearOperator):
         self.kernel = kernel
         self.sign = sign
         if shift is None:
-            diag = kernel.matrix.diagonal()
+            diag = kernel.diagonal()
             shift = 0.5 * float(diag.max() + diag.min()) if diag.size else 0.0
         self.shift = shift
         self.products = 0  # H products applied (columns)
@@ -106,10 +106,14 @@ class ExactPropagator:
         else :func:`product_threads`).
     chunk_bytes : most bytes of stored vectors one block may hold.
     interval : spectral bounds for Chebyshev (default: chosen per run, see :meth:`interval_for`).
+    keep_matrix : False lets the kernel hold only the pattern format of H when H has one
+        off-diagonal value (:func:`lgt.kernels.pattern_of`, about 40 % of the CSR's memory); the
+        caller then drops its own H to free the CSR (as the ``evolve`` task does).
     """
 
     def __init__(self, H: sp.spmatrix, method: str = "chebyshev", threads: int | None = None,
-                 chunk_bytes: int = CHUNK_BYTES, interval: tuple[float, float] | None = None) -> None:
+                 chunk_bytes: int = CHUNK_BYTES, interval: tuple[float, float] | None = None,
+                 keep_matrix: bool = True) -> None:
         if method not in METHODS:
             raise ValueError(f"method must be one of {METHODS}, got {method!r}")
         H = sp.csr_matrix(H)
@@ -119,13 +123,18 @@ class ExactPropagator:
             H = sp.csr_matrix(H.real)
         if threads is None:
             threads = 1 if H.nnz < THREADED_NONZEROS else product_threads()
-        self.kernel = SparseKernel(H, threads)
-        self.matrix = self.kernel.matrix
+        self.kernel = SparseKernel(H, threads, keep_matrix=keep_matrix)
+        del H
         self.method = method
         self.chunk_bytes = int(chunk_bytes)
         self._interval = interval
         self._gershgorin: tuple[float, float] | None = None
         self.products = 0
+
+    @property
+    def matrix(self) -> sp.csr_matrix:
+        """H as CSR (rebuilt from the pattern format when the kernel does not keep it)."""
+        return self.kernel.matrix
 
     # ------------------------------------------------------------------ helpers
     def hamiltonian_matvec(self, psi: np.ndarray) -> np.ndarray:
@@ -144,11 +153,11 @@ class ExactPropagator:
         if self._interval is not None:
             return self._interval
         if self._gershgorin is None:
-            self._gershgorin = gershgorin_interval(self.matrix)
+            self._gershgorin = self.kernel.gershgorin()
         lo, hi = self._gershgorin
         if 0.5 * (hi - lo) * duration > LANCZOS_PAYS * LANCZOS_STEPS:
             with single_threaded_blas():
-                self._interval = lanczos_interval(self.matrix, apply=self.kernel.apply)
+                self._interval = lanczos_interval(self.kernel)
             self.products += LANCZOS_STEPS
             return self._interval
         return self._gershgorin
