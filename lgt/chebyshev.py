@@ -176,11 +176,13 @@ class ChebyshevPropagator:
         needed = np.maximum.accumulate(np.minimum(needed, n_terms))
         return np.asfortranarray(coeff), needed
 
-    def _accumulate(self, psi: np.ndarray, t: np.ndarray) -> tuple[np.ndarray, np.ndarray | None, int]:
-        """The outputs e^{−i(H−c)t_j}ψ as sums over the Chebyshev terms, F-order, one column per
-        time: for real ψ (m = 1) the even- and odd-term sums R_e, R_o (dim, n_times), output
-        R_e + i R_o; for complex ψ (m = 2) one sum A (2·dim, n_times) whose columns are the
-        outputs' (Re, Im) pairs, and None.
+    def _accumulate(self, psi: np.ndarray, t: np.ndarray) -> Iterator[np.ndarray]:
+        """Yield the outputs e^{−iH t_j}ψ in order, each as soon as its series is complete (the
+        later ones still accumulating), so their measurement overlaps the recurrence.
+
+        The outputs are sums over the Chebyshev terms, F-order, one column per time: for real ψ
+        (m = 1) the even- and odd-term sums R_e, R_o (dim, n_times), output R_e + i R_o; for
+        complex ψ (m = 2) one sum A (2·dim, n_times) whose columns are the outputs' (Re, Im) pairs.
 
         Even terms carry real coefficients and odd terms imaginary ones (a_k ∝ (−i)^k), so the
         two parities are folded separately with real coefficients (half the work of folding
@@ -209,6 +211,7 @@ class ChebyshevPropagator:
 
         inv_r = 1.0 / self.radius
         first = 0
+        done = 0  # outputs yielded
         ring[2] = x0
         for k in range(n_terms):
             q = k - first
@@ -238,7 +241,10 @@ class ChebyshevPropagator:
                         target[...] = out
                 ring[0], ring[1] = ring[slot(q - 1)], ring[slot(q)]
                 first = k + 1
-        return acc[0], (acc[1] if m == 1 else None), m
+                complete = t.size if k == n_terms - 1 else int(np.searchsorted(needed, first, side="right"))
+                for j in range(done, complete):
+                    yield self._output(acc[0], acc[1] if m == 1 else None, m, float(t[j]), j)
+                done = max(done, complete)
 
     def _output(self, even: np.ndarray, odd: np.ndarray | None, m: int, t: float, j: int) -> np.ndarray:
         phase = np.exp(-1j * self.center * t)
@@ -254,13 +260,12 @@ class ChebyshevPropagator:
 
         The Chebyshev vectors T_k(X)ψ do not depend on t, so all outputs share them: the cost
         is about r·max(t) + O(log 1/tol) products with H for the whole block, instead of that
-        many per stored time. Each output is a fresh complex vector.
+        many per stored time. Each output is a fresh complex vector, yielded as soon as its series
+        is complete.
         """
         psi = np.ascontiguousarray(psi, dtype=np.complex128)
         t = np.asarray(offsets, dtype=float)
-        even, odd, m = self._accumulate(psi, t)
-        for j in range(t.size):
-            yield self._output(even, odd, m, float(t[j]), j)
+        yield from self._accumulate(psi, t)
 
     def block(self, psi: np.ndarray, offsets: np.ndarray) -> np.ndarray:
         """e^{−iH t_j} ψ for every t_j in ``offsets``, shape (len(offsets), dim)."""
