@@ -7,10 +7,13 @@ exponentially once k > rt, so a step costs about rt + O(log 1/tol) products with
 of the polynomial methods for a known spectral interval.
 
 H is real, so the recurrence runs on real vectors: one real vector when ψ is real (every product
-initial state, and real eigenvectors), the two real columns (Re ψ, Im ψ) otherwise. Each step
-T_{k+1} = 2X T_k − T_{k−1} is one fused sweep over H (:class:`lgt.kernels.SparseKernel`) written
-into a ring buffer of vectors, which is folded into the outputs of a whole block of stored times
-by one BLAS product per buffer.
+initial state, and real eigenvectors), the two real columns (Re ψ, Im ψ) otherwise — then the odd
+terms are kept multiplied by i (the kernel reads its input rotated), so all terms fold into one
+real sum. Each step T_{k+1} = 2X T_k − T_{k−1} is one fused sweep over H
+(:class:`lgt.kernels.SparseKernel`, on the pattern format when H has one off-diagonal value)
+written into a ring buffer of vectors, which is folded into the outputs of a whole block of
+stored times by one BLAS product per buffer and parity; each output is handed on as soon as its
+series is complete.
 
 The interval: Gershgorin discs (rigorous, wide) or, for long runs, the extreme Ritz values of a
 short Lanczos run widened by their residuals and a safety margin (:func:`lanczos_interval`).
