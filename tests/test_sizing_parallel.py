@@ -40,3 +40,26 @@ def test_parallel_sizing_gives_the_serial_tables(variational):
     assert_same_tables(serial, parallel)
     for key in ("layers", "best_layers_under_noise", "best_layers_under_noise_simulated"):
         assert serial.attributes[key] == parallel.attributes[key]
+
+
+def test_truncated_trajectory_is_the_one_fitted_with_the_bound():
+    # a fit run without an abort bound, cut at the bound afterwards, equals the fit run with
+    # the bound (each step's fit depends only on the earlier steps; the parallel search's rule)
+    from lgt.basis import PhysicalBasis
+    from lgt.model import ModelParams
+    from lgt.states import basis_state
+    from lgt.variational.ansatz import make_ansatz
+    from lgt.variational.settings import VariationalSettings
+    from lgt.variational.stepper import fit_trajectory, truncated
+
+    basis = PhysicalBasis(ModelParams(sites=4, hopping=1.0, mass=0.5, coupling=1.0, levels=3))
+    psi0 = basis_state(basis, np.zeros(3))
+    ansatz = make_ansatz(basis, "hardware", 1, spec=VariationalSettings().native_spec())
+    free = fit_trajectory(ansatz, psi0, 0.1, 10, 1e-6, maxiter=100)
+    bound = 0.5 * float(np.max(1 - free.fidelity))
+    cut = fit_trajectory(ansatz, psi0, 0.1, 10, 1e-6, maxiter=100, abort_infidelity=bound)
+    assert cut.times.size < free.times.size
+    again = truncated(free, bound)
+    for name in ("times", "params", "fidelity", "step_infidelity", "leakage", "iterations", "states"):
+        np.testing.assert_array_equal(getattr(again, name), getattr(cut, name))
+    assert truncated(free, None) is free

@@ -10,6 +10,7 @@ directly to the exact state (also warm-started). Step errors compound,
 from __future__ import annotations
 
 import time
+from math import comb
 from dataclasses import dataclass, fields
 from typing import Callable
 
@@ -65,6 +66,31 @@ class VariationalTrajectory:
     def max_infidelity(self) -> float:
         """max_t (1 − F(t)) over the window."""
         return float(np.max(1.0 - self.fidelity))
+
+
+#: Highest order of the polynomial extrapolations of the angles offered as a step's start
+#: (1: θ_k + (θ_k − θ_{k−1}); 2 adds the quadratic 3θ_k − 3θ_{k−1} + θ_{k−2}).
+EXTRAPOLATION_ORDER = 1
+
+
+def start_candidates(history: np.ndarray, order: int | None = None) -> list[np.ndarray]:
+    """Start angles offered to the next step's fit, given the fitted angles so far (rows
+    θ_0 … θ_k): the polynomial extrapolations in time through the last 2, …, ``order`` + 1
+    points (Newton's backward differences on the uniform grid), then θ_k itself."""
+    order = EXTRAPOLATION_ORDER if order is None else order
+    k = len(history) - 1
+    out = []
+    for m in range(min(order, k), 0, -1):
+        # the degree-m polynomial through θ_{k−m} … θ_k, evaluated at k + 1: Σ_j (−1)^j C(m+1, j+1) θ_{k−j}
+        if m == 1:
+            out.append(history[k] + (history[k] - history[k - 1]))
+            continue
+        coeffs = [(-1) ** j * comb(m + 1, j + 1) for j in range(m + 1)]
+        out.append(sum(c * history[k - j] for j, c in enumerate(coeffs)))
+    if k == 0:
+        out.append(history[0] + 0.0)  # no history yet: the zero update (as the extrapolation before)
+    out.append(history[k])
+    return out
 
 
 def truncated(traj: VariationalTrajectory, abort_infidelity: float | None) -> VariationalTrajectory:
@@ -141,8 +167,7 @@ def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: in
     for k in range(n_steps):
         t0 = time.perf_counter()
         target = stepper.step(current, dt) if stepper is not None else ansatz.embed(exact[k + 1])
-        start = params[k] + (params[k] - params[k - 1] if k > 0 else 0.0)
-        candidates = [start, params[k]]
+        candidates = start_candidates(params[:k + 1])
         if warm is not None and k + 1 < len(warm):
             candidates.append(warm[k + 1])
         guess = _better_start(circuit, v0, target, candidates)
