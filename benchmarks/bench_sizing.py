@@ -17,7 +17,7 @@ depth-table column (timing columns excluded).
 Usage::
 
     python benchmarks/bench_sizing.py [--sites 6] [--t-final 2] [--repeats 3]
-        [--variants base-plain,base-fast,serial,fast] [--base-ref REV] [--json]
+        [--variants base-plain,base-fast,serial,fast] [--base-ref REV] [--ref REV] [--json]
 """
 
 from __future__ import annotations
@@ -127,15 +127,18 @@ def main() -> None:
     ap.add_argument("--repeats", type=int, default=3)
     ap.add_argument("--variants", default="base-plain,base-fast,serial,fast")
     ap.add_argument("--base-ref", default=BASE_REF)
+    ap.add_argument("--ref", default=None, help="measure this revision as 'after' (default: the working tree)")
     ap.add_argument("--json", action="store_true")
     args = ap.parse_args()
     variants = args.variants.split(",")
     base = base_tree(args.base_ref) if any(v.startswith("base") for v in variants) else None
+    after = base_tree(args.ref) if args.ref else HERE
     runs: dict[str, list[dict]] = {v: [] for v in variants}
-    print(f"N = {args.sites}, T = {args.t_final}, {args.repeats} repeats; load {os.getloadavg()} at start", flush=True)
+    print(f"N = {args.sites}, T = {args.t_final}, {args.repeats} repeats; before: {args.base_ref}, after: "
+          f"{args.ref or 'working tree'}; load {os.getloadavg()} at start", flush=True)
     for rep in range(args.repeats):
         for v in variants:
-            r = run_variant(base if v.startswith("base") else HERE, config(args.sites, args.t_final, v))
+            r = run_variant(base if v.startswith("base") else after, config(args.sites, args.t_final, v))
             runs[v].append(r)
             fams = ", ".join(f"{n}: D = {f['layers']} ({f['iterations']:.0f} it/step)" for n, f in r["families"].items())
             print(f"[{rep + 1}] {v:10s} {r['wall']:7.1f} s wall {r['cpu']:7.1f} s CPU  {fams}  "
