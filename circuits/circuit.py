@@ -20,7 +20,7 @@ import numpy as np
 
 from fluxline_threads import single_threaded_blas
 from .fused import FusedRegisterCircuit
-from .kernel import HAVE_NUMBA, KernelProgram
+from .kernel import HAVE_NUMBA, KernelProgram, NotLowerable
 from .gates import Gate, pairs_apply, pairs_backward
 from .register import Space, from_view, to_view
 
@@ -31,8 +31,8 @@ __all__ = ["Op", "ParametrizedCircuit"]
 SMALL_STATE = 8192
 #: small register states are run block-fused (:mod:`circuits.fused`)
 FUSE_REGISTER = True
-#: register states with at most this many amplitudes (batch included) run on the compiled
-#: kernel (:mod:`circuits.kernel`) when numba is there; ``USE_KERNEL = False`` restores the numpy
+#: states with at most this many amplitudes (batch included) run on the compiled kernel
+#: (:mod:`circuits.kernel`) when numba is there and every gate has a kernel form; ``USE_KERNEL = False`` restores the numpy
 #: paths above. Measured (native brickwork, d = 3, fidelity and gradient, CPU time): 2.8–2.9x
 #: faster than block-fused at 243 and 729 amplitudes, 1.0–1.3x at 2187, 0.75x at 6561 (the
 #: fused blocks' dense products win there; docs/circuits.md)
@@ -247,13 +247,16 @@ class ParametrizedCircuit:
 
     def _kernel(self, size: int) -> KernelProgram | None:
         """Compiled-kernel form for register states of ``size`` amplitudes (see :data:`USE_KERNEL`)."""
-        if not (USE_KERNEL and HAVE_NUMBA and self.space.register) or size > KERNEL_STATE or not self.ops:
+        if not (USE_KERNEL and HAVE_NUMBA) or size > KERNEL_STATE or not self.ops:
             return None
         comp = self._compiled()
         cached = self.__dict__.get("_kernel_cache")
         if cached is None or cached[0] is not comp:
-            cached = self._kernel_cache = (comp, KernelProgram([op.gate for op in comp.ops], self.space.shape),
-                                           np.ascontiguousarray(comp.index < comp.n_params))
+            try:
+                program = KernelProgram([op.gate for op in comp.ops], self.space.shape, self.space.register)
+            except NotLowerable:
+                program = None
+            cached = self._kernel_cache = (comp, program, np.ascontiguousarray(comp.index < comp.n_params))
         return cached[1]
 
     def _segments(self) -> list[_Segment]:

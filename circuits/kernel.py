@@ -29,12 +29,12 @@ from typing import Sequence
 
 import numpy as np
 
-__all__ = ["HAVE_NUMBA", "KernelProgram"]
+__all__ = ["HAVE_NUMBA", "KernelProgram", "NotLowerable"]
 
 #: numba is a core dependency; without it (or with FLUXLINE_NO_NUMBA set) the numpy paths run.
 HAVE_NUMBA = importlib.util.find_spec("numba") is not None and not os.environ.get("FLUXLINE_NO_NUMBA")
 
-PAIR, DIAG, DENSE = 0, 1, 2
+PAIR, DIAG, DENSE, PAIRGEN = 0, 1, 2, 3
 
 _COMPILED: dict = {}
 _LOCK = threading.Lock()
@@ -55,11 +55,13 @@ def _jit(name: str):
 
 
 # The kernels below are written for numba (plain Python loops over amplitudes); ``*_py`` are the
-# undecorated sources, ``*_jit`` their compiled forms (bound by :func:`_jit`).
+# undecorated sources, ``*_jit`` their compiled forms (bound by :func:`_jit`). ``prog`` is the
+# tuple :attr:`KernelProgram.arrays`.
 
-def _apply_gate_py(g, t, x, kinds, freq, p_lo, p_hi, pa, pb, pw, d_lo, d_tab, didx, dtab,
-                   e_lo, e_dim, i_lo, ew, ev, gidx, buf):  # pragma: no cover - jitted
+def _apply_gate_py(g, t, x, prog, buf):  # pragma: no cover - jitted
     """``U_g(t)`` on every row of ``x`` (B, dim) in place."""
+    (kinds, freq, gain, p_lo, p_hi, pa, pb, pw, pf, d_lo, d_tab, didx, dtab, e_lo, e_dim, i_lo,
+     ew, ev, eg, gidx) = prog
     nb = x.shape[0]
     kind = kinds[g]
     if kind == 0:
@@ -83,6 +85,26 @@ def _apply_gate_py(g, t, x, kinds, freq, p_lo, p_hi, pa, pb, pw, d_lo, d_tab, di
         for b in range(nb):
             for i in range(dim):
                 x[b, i] *= buf[didx[lo + i]]
+    elif kind == 3:
+        for p in range(p_lo[g], p_hi[g]):
+            i0, i1 = pa[p], pb[p]
+            mu, r, nz, no = pf[3 * p], pf[3 * p + 1], pf[3 * p + 2], pw[p]
+            ph = np.cos(t * mu) - 1j * np.sin(t * mu)
+            q = -1j * np.sin(t * r) * ph
+            pc = np.cos(t * r) * ph
+            qz = q * nz
+            m00, m01, m10, m11 = pc + qz, q * no, q * np.conj(no), pc - qz
+            for b in range(nb):
+                x0, x1 = x[b, i0], x[b, i1]
+                x[b, i0] = m00 * x0 + m01 * x1
+                x[b, i1] = m10 * x0 + m11 * x1
+        lo, t0 = d_lo[g], d_tab[g]
+        for j in range(d_tab[g + 1] - t0):
+            v = dtab[t0 + j] * t
+            ph = np.cos(v) - 1j * np.sin(v)
+            i = didx[lo + j]
+            for b in range(nb):
+                x[b, i] *= ph
     else:
         D = e_dim[g]
         lo = e_lo[g]
@@ -108,13 +130,14 @@ def _apply_gate_py(g, t, x, kinds, freq, p_lo, p_hi, pa, pb, pw, d_lo, d_tab, di
                     x[b, gidx[il + r * D + a]] = tmp[a]
 
 
-def _overlap_unapply_py(g, t, psi, lam, unapply, kinds, freq, gain, p_lo, p_hi, pa, pb, pw, d_lo, d_tab,
-                        didx, dtab, e_lo, e_dim, i_lo, ew, ev, eg, gidx, buf):  # pragma: no cover - jitted
+def _overlap_unapply_py(g, t, psi, lam, unapply, prog, buf):  # pragma: no cover - jitted
     """``sum_b <lam_b|G_g|psi_b>``, then (``unapply``) ``U_g(-t)`` on ``psi`` and ``lam``."""
+    (kinds, freq, gain, p_lo, p_hi, pa, pb, pw, pf, d_lo, d_tab, didx, dtab, e_lo, e_dim, i_lo,
+     ew, ev, eg, gidx) = prog
     nb = psi.shape[0]
     kind = kinds[g]
     ov = 0j
-    if kind == 0:
+    if kind == 0:  # overlap and un-apply in one sweep
         c = np.cos(freq[g] * t)
         s = np.sin(freq[g] * t)
         for p in range(p_lo[g], p_hi[g]):
@@ -151,47 +174,53 @@ def _overlap_unapply_py(g, t, psi, lam, unapply, kinds, freq, gain, p_lo, p_hi, 
                     psi[b, i] = x * buf[j]
                     lam[b, i] = lv * buf[j]
         return ov
-    D = e_dim[g]
-    lo = e_lo[g]
-    R = psi.shape[1] // D
-    il = i_lo[g]
-    for b in range(nb):
-        for r in range(R):
-            for a in range(D):
-                acc = 0j
-                for c2 in range(D):
-                    acc += eg[lo + a * D + c2] * psi[b, gidx[il + r * D + c2]]
-                ov += np.conj(lam[b, gidx[il + r * D + a]]) * acc
+    if kind == 3:
+        for p in range(p_lo[g], p_hi[g]):
+            i0, i1 = pa[p], pb[p]
+            mu, r, nz = pf[3 * p], pf[3 * p + 1], pf[3 * p + 2]
+            h00, h11, h01 = mu + r * nz, mu - r * nz, r * pw[p]
+            for b in range(nb):
+                x0, x1 = psi[b, i0], psi[b, i1]
+                ov += (np.conj(lam[b, i0]) * (h00 * x0 + h01 * x1)
+                       + np.conj(lam[b, i1]) * (np.conj(h01) * x0 + h11 * x1))
+        lo, t0 = d_lo[g], d_tab[g]
+        for j in range(d_tab[g + 1] - t0):
+            i = didx[lo + j]
+            for b in range(nb):
+                ov += np.conj(lam[b, i]) * dtab[t0 + j] * psi[b, i]
+    else:
+        D = e_dim[g]
+        lo = e_lo[g]
+        R = psi.shape[1] // D
+        il = i_lo[g]
+        for b in range(nb):
+            for r in range(R):
+                for a in range(D):
+                    acc = 0j
+                    for c2 in range(D):
+                        acc += eg[lo + a * D + c2] * psi[b, gidx[il + r * D + c2]]
+                    ov += np.conj(lam[b, gidx[il + r * D + a]]) * acc
     if unapply:
-        _apply_gate_jit(g, -t, psi, kinds, freq, p_lo, p_hi, pa, pb, pw, d_lo, d_tab, didx, dtab,
-                        e_lo, e_dim, i_lo, ew, ev, gidx, buf)
-        _apply_gate_jit(g, -t, lam, kinds, freq, p_lo, p_hi, pa, pb, pw, d_lo, d_tab, didx, dtab,
-                        e_lo, e_dim, i_lo, ew, ev, gidx, buf)
+        _apply_gate_jit(g, -t, psi, prog, buf)
+        _apply_gate_jit(g, -t, lam, prog, buf)
     return ov
 
 
-def _forward_kernel_py(angles, x, kinds, freq, p_lo, p_hi, pa, pb, pw, d_lo, d_tab, didx, dtab,
-                       e_lo, e_dim, i_lo, ew, ev, gidx, buf):  # pragma: no cover - jitted
-    for g in range(kinds.size):
-        _apply_gate_jit(g, angles[g], x, kinds, freq, p_lo, p_hi, pa, pb, pw, d_lo, d_tab, didx, dtab,
-                        e_lo, e_dim, i_lo, ew, ev, gidx, buf)
+def _forward_kernel_py(angles, x, prog, buf):  # pragma: no cover - jitted
+    for g in range(prog[0].size):
+        _apply_gate_jit(g, angles[g], x, prog, buf)
 
 
-def _adjoint_kernel_py(angles, bound, first, psi, lam, ovs, kinds, freq, gain, p_lo, p_hi, pa, pb, pw,
-                       d_lo, d_tab, didx, dtab, e_lo, e_dim, i_lo, ew, ev, eg, gidx,
-                       buf):  # pragma: no cover - jitted
+def _adjoint_kernel_py(angles, bound, first, psi, lam, ovs, prog, buf):  # pragma: no cover - jitted
     """Backward pass from the final state ``psi`` and the target ``lam`` (both overwritten);
     ``ovs[g]`` receives ``<lam_g|G_g|psi_g>`` for the parameter-bound gates from ``first`` on."""
-    for g in range(kinds.size - 1, first - 1, -1):
+    for g in range(prog[0].size - 1, first - 1, -1):
         more = g > first
         if bound[g]:
-            ovs[g] = _overlap_unapply_jit(g, angles[g], psi, lam, more, kinds, freq, gain, p_lo, p_hi, pa, pb,
-                                          pw, d_lo, d_tab, didx, dtab, e_lo, e_dim, i_lo, ew, ev, eg, gidx, buf)
+            ovs[g] = _overlap_unapply_jit(g, angles[g], psi, lam, more, prog, buf)
         elif more:
-            _apply_gate_jit(g, -angles[g], psi, kinds, freq, p_lo, p_hi, pa, pb, pw, d_lo, d_tab, didx, dtab,
-                            e_lo, e_dim, i_lo, ew, ev, gidx, buf)
-            _apply_gate_jit(g, -angles[g], lam, kinds, freq, p_lo, p_hi, pa, pb, pw, d_lo, d_tab, didx, dtab,
-                            e_lo, e_dim, i_lo, ew, ev, gidx, buf)
+            _apply_gate_jit(g, -angles[g], psi, prog, buf)
+            _apply_gate_jit(g, -angles[g], lam, prog, buf)
 
 
 def _pair_lowering(gate, shape: tuple[int, ...]):
@@ -210,84 +239,118 @@ def _pair_lowering(gate, shape: tuple[int, ...]):
     return np.concatenate(first), np.concatenate(second), np.concatenate(weights), form.freq, form.gain
 
 
+class NotLowerable(ValueError):
+    """A gate the kernel has no form for (the circuit keeps its numpy paths)."""
+
+
 class KernelProgram:
-    """A register gate list lowered to the flat arrays of the compiled kernel.
+    """A gate list lowered to the flat arrays of the compiled kernel.
 
     Parameters
     ----------
     gates
-        Gates in application order (each ``exp(-i t G)`` with a local ``G``).
+        Gates in application order (each ``exp(-i t G)``).
     shape
-        Register shape ``(d,) * K``.
+        Register shape ``(d,) * K``, or ``(dim,)`` in subspace mode (``register=False``), where
+        only gates with a diagonal or two-state generator (:meth:`SparseGeneratorGate.two_state_form`)
+        are lowered.
+
+    Raises
+    ------
+    NotLowerable
+        For a gate without a kernel form.
     """
 
-    def __init__(self, gates: Sequence, shape: tuple[int, ...]) -> None:
+    def __init__(self, gates: Sequence, shape: tuple[int, ...], register: bool = True) -> None:
         from .gates import DiagonalGate
 
-        n, n_q, d = len(gates), len(shape), shape[0]
+        n = len(gates)
         dim = int(np.prod(shape, dtype=np.int64))
-        levels = np.indices(shape).reshape(n_q, -1)
+        levels = np.indices(shape).reshape(len(shape), -1) if register else None
         self.dim = dim
         kinds = np.zeros(n, dtype=np.int64)
         freq, gain = np.zeros(n), np.zeros(n)
         p_lo, p_hi = np.zeros(n, dtype=np.int64), np.zeros(n, dtype=np.int64)
         d_lo, d_tab = np.zeros(n, dtype=np.int64), np.zeros(n + 1, dtype=np.int64)
         e_lo, e_dim, i_lo = (np.zeros(n, dtype=np.int64) for _ in range(3))
-        pa, pb, pw, didx, dtab, ew, ev, eg, gidx = ([] for _ in range(9))
-        n_pair = n_didx = n_tab = n_eig = n_gidx = 0
+        parts: dict[str, list] = {k: [] for k in ("pa", "pb", "pw", "pf", "didx", "dtab", "ew", "ev", "eg", "gidx")}
+        count = dict(pair=0, didx=0, tab=0, eig=0, gidx=0)
         widest = 1
+
+        def pairs(a, b, w, f=None) -> None:
+            p_lo[g], p_hi[g] = count["pair"], count["pair"] + a.size
+            parts["pa"].append(a)
+            parts["pb"].append(b)
+            parts["pw"].append(w)
+            parts["pf"].append(np.zeros(3 * a.size) if f is None else f)
+            count["pair"] += a.size
+
+        def table(idx, values) -> None:
+            d_lo[g] = count["didx"]
+            parts["didx"].append(idx)
+            count["didx"] += idx.size
+            parts["dtab"].append(values)
+            count["tab"] += values.size
+
         for g, gate in enumerate(gates):
-            d_tab[g + 1] = n_tab
+            d_tab[g] = count["tab"]
+            if not register:
+                form = getattr(gate, "two_state_form", lambda: None)()
+                if getattr(gate, "is_diagonal", False) and hasattr(gate, "h"):
+                    kinds[g] = DIAG
+                    table(np.arange(dim), np.asarray(gate.h, dtype=np.float64))
+                    widest = max(widest, dim)
+                elif form is not None:
+                    kinds[g] = PAIRGEN
+                    single, h, first, second, h00, h11, h01 = form
+                    mu, half = 0.5 * (h00 + h11), 0.5 * (h00 - h11)
+                    r = np.sqrt(half ** 2 + np.abs(h01) ** 2)
+                    pairs(first, second, h01 / r, np.column_stack([mu, r, half / r]).ravel())
+                    table(single, h)
+                else:
+                    raise NotLowerable(f"{type(gate).__name__} in subspace mode")
+                d_tab[g + 1] = count["tab"]
+                continue
             if isinstance(gate, DiagonalGate):
                 kinds[g] = DIAG
-                tidx = np.ravel_multi_index(tuple(levels[q] for q in gate.qudits), gate.h.shape)
-                d_lo[g] = n_didx
-                didx.append(tidx)
-                n_didx += dim
-                dtab.append(gate.h.ravel())
-                n_tab += gate.h.size
-                d_tab[g + 1] = n_tab
+                table(np.ravel_multi_index(tuple(levels[q] for q in gate.qudits), gate.h.shape), gate.h.ravel())
+                d_tab[g + 1] = count["tab"]
                 widest = max(widest, gate.h.size)
                 continue
+            d_tab[g + 1] = count["tab"]
             lowered = _pair_lowering(gate, shape)
             if lowered is not None:
                 a, b, w, freq[g], gain[g] = lowered
                 kinds[g] = PAIR
-                p_lo[g], p_hi[g] = n_pair, n_pair + a.size
-                pa.append(a)
-                pb.append(b)
-                pw.append(w)
-                n_pair += a.size
+                pairs(a, b, w)
                 continue
             kinds[g] = DENSE
-            qs = list(gate.qudits)
+            qs, d = list(gate.qudits), shape[0]
             D = d ** len(qs)
             gen = np.asarray(gate.generator(), dtype=np.complex128)
             w, v = np.linalg.eigh(gen)
-            e_lo[g], e_dim[g] = n_eig, D
-            ew.append(np.concatenate([w, np.zeros(D * D - D)]))  # eigenvalues at n_eig // D .. + D
-            ev.append(v.ravel())
-            eg.append(gen.ravel())
-            n_eig += D * D
-            rest = [q for q in range(n_q) if q not in qs]
+            e_lo[g], e_dim[g] = count["eig"], D
+            parts["ew"].append(np.concatenate([w, np.zeros(D * D - D)]))  # eigenvalues at e_lo .. e_lo + D
+            parts["ev"].append(v.ravel())
+            parts["eg"].append(gen.ravel())
+            count["eig"] += D * D
+            rest = [q for q in range(len(shape)) if q not in qs]
             loc = np.ravel_multi_index(tuple(levels[qs]), (d,) * len(qs))
-            r = np.ravel_multi_index(tuple(levels[rest]), (d,) * len(rest)) if rest else np.zeros(dim, np.intp)
-            table = np.empty((dim // D, D), dtype=np.int64)
-            table[r, loc] = np.arange(dim)
-            i_lo[g] = n_gidx
-            gidx.append(table.ravel())
-            n_gidx += dim
+            rr = np.ravel_multi_index(tuple(levels[rest]), (d,) * len(rest)) if rest else np.zeros(dim, np.intp)
+            groups = np.empty((dim // D, D), dtype=np.int64)
+            groups[rr, loc] = np.arange(dim)
+            i_lo[g] = count["gidx"]
+            parts["gidx"].append(groups.ravel())
+            count["gidx"] += dim
             widest = max(widest, D * D + D)
 
-        def cat(parts, dtype):
-            return np.concatenate(parts).astype(dtype) if parts else np.zeros(1, dtype=dtype)
+        def cat(name, dtype):
+            return np.concatenate(parts[name]).astype(dtype) if parts[name] else np.zeros(1, dtype=dtype)
 
-        self.arrays = (kinds, freq, p_lo, p_hi, cat(pa, np.int64), cat(pb, np.int64), cat(pw, np.complex128),
-                       d_lo, d_tab, cat(didx, np.int64), cat(dtab, np.float64), e_lo, e_dim, i_lo,
-                       cat(ew, np.float64), cat(ev, np.complex128))
-        self.gain = gain
-        self.eg = cat(eg, np.complex128)
-        self.gidx = cat(gidx, np.int64)
+        self.arrays = (kinds, freq, gain, p_lo, p_hi, cat("pa", np.int64), cat("pb", np.int64),
+                       cat("pw", np.complex128), cat("pf", np.float64), d_lo, d_tab, cat("didx", np.int64),
+                       cat("dtab", np.float64), e_lo, e_dim, i_lo, cat("ew", np.float64), cat("ev", np.complex128),
+                       cat("eg", np.complex128), cat("gidx", np.int64))
         self.widest = widest
 
     def _buf(self) -> np.ndarray:
@@ -295,8 +358,7 @@ class KernelProgram:
 
     def forward(self, angles: np.ndarray, flat: np.ndarray) -> np.ndarray:
         """Apply the gates at ``angles`` to ``flat`` ``(B, dim)`` (C-contiguous complex, in place)."""
-        _jit("_forward_kernel")(np.ascontiguousarray(angles, dtype=np.float64), flat, *self.arrays, self.gidx,
-                                self._buf())
+        _jit("_forward_kernel")(np.ascontiguousarray(angles, dtype=np.float64), flat, self.arrays, self._buf())
         return flat
 
     def overlap_and_overlaps(self, angles: np.ndarray, bound: np.ndarray, first: int, psi: np.ndarray,
@@ -306,11 +368,8 @@ class KernelProgram:
         complex ``(B, dim)``) are overwritten."""
         angles = np.ascontiguousarray(angles, dtype=np.float64)
         buf = self._buf()
-        _jit("_forward_kernel")(angles, psi, *self.arrays, self.gidx, buf)
+        _jit("_forward_kernel")(angles, psi, self.arrays, buf)
         f = complex(np.vdot(phi, psi))
-        lam = phi
         ovs = np.zeros(self.arrays[0].size, dtype=np.complex128)
-        (kinds, freq, p_lo, p_hi, pa, pb, pw, d_lo, d_tab, didx, dtab, e_lo, e_dim, i_lo, ew, ev) = self.arrays
-        _jit("_adjoint_kernel")(angles, bound, first, psi, lam, ovs, kinds, freq, self.gain, p_lo, p_hi, pa, pb,
-                                pw, d_lo, d_tab, didx, dtab, e_lo, e_dim, i_lo, ew, ev, self.eg, self.gidx, buf)
+        _jit("_adjoint_kernel")(angles, bound, first, psi, phi, ovs, self.arrays, buf)
         return f, ovs
