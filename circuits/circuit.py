@@ -256,7 +256,7 @@ class ParametrizedCircuit:
                 program = KernelProgram([op.gate for op in comp.ops], self.space.shape, self.space.register)
             except NotLowerable:
                 program = None
-            cached = self._kernel_cache = (comp, program, np.ascontiguousarray(comp.index < comp.n_params))
+            cached = self._kernel_cache = (comp, program)
         return cached[1]
 
     def _segments(self) -> list[_Segment]:
@@ -281,8 +281,10 @@ class ParametrizedCircuit:
     def _forward(self, angles: np.ndarray, view: np.ndarray) -> np.ndarray:
         kernel = self._kernel(view.size)
         if kernel is not None:
+            comp = self._compiled()
             flat = np.ascontiguousarray(view.reshape(view.shape[0], -1), dtype=np.complex128)
-            return kernel.forward(angles, flat).reshape(view.shape)
+            kernel.run(angles, comp.index, comp.scale, comp.first, flat, None, comp.n_params)
+            return flat.reshape(view.shape)
         fused = self._fused(view.size)
         if fused is not None:
             return fused.forward(angles, view.reshape(view.shape[0], -1))[0].reshape(view.shape)
@@ -327,9 +329,8 @@ class ParametrizedCircuit:
         kernel = self._kernel(psi.size)
         if kernel is not None:
             # psi and lam are fresh copies (to_view): the kernel may overwrite them
-            f, ovs = kernel.overlap_and_overlaps(angles, self._kernel_cache[2], comp.first, psi.reshape(nb, -1),
-                                                 lam.reshape(nb, -1))
-            return f, self._scatter_gradient(comp, ovs, p.size)
+            return kernel.run(angles, comp.index, comp.scale, comp.first, psi.reshape(nb, -1), lam.reshape(nb, -1),
+                              p.size)
         fused = self._fused(psi.size)
         if fused is not None:
             # block-fused forward; overlaps from one transition matrix per block

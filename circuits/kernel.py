@@ -48,7 +48,7 @@ def _jit(name: str):
             import numba
 
             jitted = {}
-            for fn in ("_apply_gate", "_overlap_unapply", "_forward_kernel", "_adjoint_kernel"):
+            for fn in ("_apply_gate", "_overlap_unapply", "_entry"):
                 globals()[fn + "_jit"] = jitted[fn] = numba.njit(nogil=True, cache=True)(globals()[fn + "_py"])
             _COMPILED.update(jitted)
         return _COMPILED[name]
@@ -206,21 +206,35 @@ def _overlap_unapply_py(g, t, psi, lam, unapply, prog, buf):  # pragma: no cover
     return ov
 
 
-def _forward_kernel_py(angles, x, prog, buf):  # pragma: no cover - jitted
-    for g in range(prog[0].size):
-        _apply_gate_jit(g, angles[g], x, prog, buf)
-
-
-def _adjoint_kernel_py(angles, bound, first, psi, lam, ovs, prog, buf):  # pragma: no cover - jitted
-    """Backward pass from the final state ``psi`` and the target ``lam`` (both overwritten);
-    ``ovs[g]`` receives ``<lam_g|G_g|psi_g>`` for the parameter-bound gates from ``first`` on."""
-    for g in range(prog[0].size - 1, first - 1, -1):
+def _entry_py(gradient, angles, index, scale, first, psi, lam, grad, ints, oi, floats, of, cplx, oc,
+              buf):  # pragma: no cover - jitted
+    """One call per evaluation (numba's dispatch costs per argument): the forward pass on ``psi``;
+    with ``gradient`` also ``f = sum <lam|psi>`` (returned) and the backward pass, the overlaps
+    scattered onto ``grad[index[g]] += -i scale[g] <lam_g|G_g|psi_g>`` (fixed gates have
+    ``index = len(grad) - 1``, a dump slot)."""
+    prog = (ints[oi[0]:oi[1]], floats[of[0]:of[1]], floats[of[1]:of[2]], ints[oi[1]:oi[2]], ints[oi[2]:oi[3]],
+            ints[oi[3]:oi[4]], ints[oi[4]:oi[5]], cplx[oc[0]:oc[1]], floats[of[2]:of[3]], ints[oi[5]:oi[6]],
+            ints[oi[6]:oi[7]], ints[oi[7]:oi[8]], floats[of[3]:of[4]], ints[oi[8]:oi[9]], ints[oi[9]:oi[10]],
+            ints[oi[10]:oi[11]], floats[of[4]:of[5]], cplx[oc[1]:oc[2]], cplx[oc[2]:oc[3]], ints[oi[11]:oi[12]])
+    n = prog[0].size
+    for g in range(n):
+        _apply_gate_jit(g, angles[g], psi, prog, buf)
+    if not gradient:
+        return 0j
+    f = 0j
+    for b in range(psi.shape[0]):
+        for i in range(psi.shape[1]):
+            f += np.conj(lam[b, i]) * psi[b, i]
+    dump = grad.size - 1
+    for g in range(n - 1, first - 1, -1):
         more = g > first
-        if bound[g]:
-            ovs[g] = _overlap_unapply_jit(g, angles[g], psi, lam, more, prog, buf)
+        if index[g] != dump:
+            ov = _overlap_unapply_jit(g, angles[g], psi, lam, more, prog, buf)
+            grad[index[g]] += -1j * scale[g] * ov
         elif more:
             _apply_gate_jit(g, -angles[g], psi, prog, buf)
             _apply_gate_jit(g, -angles[g], lam, prog, buf)
+    return f
 
 
 def _pair_lowering(gate, shape: tuple[int, ...]):
@@ -237,6 +251,13 @@ def _pair_lowering(gate, shape: tuple[int, ...]):
         second.append(b)
         weights.append(np.full(a.size, w, dtype=np.complex128))
     return np.concatenate(first), np.concatenate(second), np.concatenate(weights), form.freq, form.gain
+
+
+def _pack(arrays: list[np.ndarray], dtype) -> tuple[np.ndarray, np.ndarray]:
+    """``arrays`` concatenated (as ``dtype``) and their boundaries."""
+    bounds = np.zeros(len(arrays) + 1, dtype=np.int64)
+    bounds[1:] = np.cumsum([a.size for a in arrays])
+    return np.concatenate([np.asarray(a, dtype=dtype) for a in arrays]), bounds
 
 
 class NotLowerable(ValueError):
@@ -352,24 +373,22 @@ class KernelProgram:
                        cat("dtab", np.float64), e_lo, e_dim, i_lo, cat("ew", np.float64), cat("ev", np.complex128),
                        cat("eg", np.complex128), cat("gidx", np.int64))
         self.widest = widest
+        (kinds_, freq_, gain_, p_lo_, p_hi_, pa_, pb_, pw_, pf_, d_lo_, d_tab_, didx_, dtab_, e_lo_, e_dim_, i_lo_,
+         ew_, ev_, eg_, gidx_) = self.arrays
+        self.packed = (_pack([kinds_, p_lo_, p_hi_, pa_, pb_, d_lo_, d_tab_, didx_, e_lo_, e_dim_, i_lo_, gidx_], np.int64)
+                       + _pack([freq_, gain_, pf_, dtab_, ew_], np.float64) + _pack([pw_, ev_, eg_], np.complex128))
+
+    def run(self, angles: np.ndarray, index: np.ndarray, scale: np.ndarray, first: int, psi: np.ndarray,
+            lam: np.ndarray | None, n_params: int) -> tuple[complex, np.ndarray | None]:
+        """Forward pass on ``psi`` (``(B, dim)`` C-contiguous complex, in place); with a target
+        ``lam`` (overwritten) also ``f = sum_b <lam_b|C|psi_b>`` and the complex gradient
+        ``df/dparams`` (``index``: parameter of each gate, ``n_params`` for fixed gates;
+        ``scale``: the gates' parameter scales; ``first``: first parameter-bound gate)."""
+        gradient = lam is not None
+        grad = np.zeros(n_params + 1, dtype=np.complex128)
+        f = _jit("_entry")(gradient, np.ascontiguousarray(angles, dtype=np.float64), index, scale, first, psi,
+                           psi if lam is None else lam, grad, *self.packed, self._buf())
+        return complex(f), (grad[:n_params] if gradient else None)
 
     def _buf(self) -> np.ndarray:
         return np.empty(self.widest, dtype=np.complex128)
-
-    def forward(self, angles: np.ndarray, flat: np.ndarray) -> np.ndarray:
-        """Apply the gates at ``angles`` to ``flat`` ``(B, dim)`` (C-contiguous complex, in place)."""
-        _jit("_forward_kernel")(np.ascontiguousarray(angles, dtype=np.float64), flat, self.arrays, self._buf())
-        return flat
-
-    def overlap_and_overlaps(self, angles: np.ndarray, bound: np.ndarray, first: int, psi: np.ndarray,
-                             phi: np.ndarray) -> tuple[complex, np.ndarray]:
-        """``f = sum_b <phi_b|C|psi_b>`` and ``<lam_g|G_g|psi_g>`` of every gate (0 for gates
-        before ``first`` and gates not bound to a parameter); ``psi`` and ``phi`` (C-contiguous
-        complex ``(B, dim)``) are overwritten."""
-        angles = np.ascontiguousarray(angles, dtype=np.float64)
-        buf = self._buf()
-        _jit("_forward_kernel")(angles, psi, self.arrays, buf)
-        f = complex(np.vdot(phi, psi))
-        ovs = np.zeros(self.arrays[0].size, dtype=np.complex128)
-        _jit("_adjoint_kernel")(angles, bound, first, psi, phi, ovs, self.arrays, buf)
-        return f, ovs
