@@ -108,14 +108,15 @@ def compare(ref: dict, other: dict) -> dict:
         if o is None:
             out[name] = "missing"
             continue
-        same = all(fam[k] == o[k] for k in ("layers", "best_under_noise", "best_simulated"))
+        keys = ("layers", "best_under_noise", "best_simulated")
+        same = {k: fam[k] if fam[k] == o[k] else f"{fam[k]} vs {o[k]}" for k in keys}
         diffs = {}
         for col, vals in fam["table"].items():
             if col in TIMING or col not in o["table"]:
                 continue
             a, b = np.array(vals), np.array(o["table"][col])
             diffs[col] = float(np.max(np.abs(a - b))) if a.shape == b.shape else float("inf")
-        out[name] = {"same_depths": same, "rows": (len(fam["table"]["layers"]), len(o["table"]["layers"])),
+        out[name] = {"depths": same, "rows": (len(fam["table"]["layers"]), len(o["table"]["layers"])),
                      "largest_differences": {k: v for k, v in diffs.items() if v > 0}}
     return out
 
@@ -151,9 +152,11 @@ def main() -> None:
     print(f"\nratios against {ref} (medians):")
     for v in variants[1:]:
         print(f"  {v:10s} {med[ref]['wall'] / med[v]['wall']:5.2f}x wall {med[ref]['cpu'] / med[v]['cpu']:5.2f}x CPU")
-    print(f"\nanswers against {ref} (first repeat):")
-    for v in variants[1:]:
-        print(f"  {v}: {json.dumps(compare(runs[ref][0], runs[v][0]))}")
+    for ref in variants[:2]:
+        print(f"\nanswers against {ref} (first repeat; depths: equal value or 'a vs b'):")
+        for v in variants:
+            if v != ref:
+                print(f"  {v}: {json.dumps(compare(runs[ref][0], runs[v][0]))}")
     if args.json:
         print(json.dumps({"runs": runs, "medians": med}))
 
