@@ -29,6 +29,7 @@ Gates act on canonical views ``(B, d, ..., d)`` (see :mod:`circuits.register`).
 from __future__ import annotations
 
 import cmath
+import functools
 import math
 from abc import ABC, abstractmethod
 from typing import NamedTuple, Sequence
@@ -495,20 +496,26 @@ class DiagonalGate(Gate):
         self.qudits, self.d, self.h = q, int(d), table
         self.kind = {1: "single", 2: "two"}.get(len(q), "generator")
 
-    @property
+    @functools.cached_property
+    def _light_shift_levels(self) -> tuple[int, int] | None:
+        """:func:`zz_levels` of a two-qudit table (None otherwise); computed once per gate (the
+        table is fixed), since pricing asks for every gate's key."""
+        return zz_levels(self.h) if self.locality == 2 else None
+
+    @functools.cached_property
     def hardware_key(self) -> str:
         """``phase`` (virtual single-qudit phase), ``light_shift`` (``Z^{jk} (x) Z^{jk}`` table),
         ``diagonal2`` (any other two-qudit table) or ``generator``."""
         if self.locality == 1:
             return "phase"
         if self.locality == 2:
-            return "light_shift" if zz_levels(self.h) is not None else "diagonal2"
+            return "light_shift" if self._light_shift_levels is not None else "diagonal2"
         return "generator"
 
     def export(self) -> dict:
         if self.locality == 1:
             return {"kind": "virtual_phase", "qudits": list(self.qudits), "table": self.h.tolist()}
-        levels = zz_levels(self.h) if self.locality == 2 else None
+        levels = self._light_shift_levels
         if levels is not None:
             return {"kind": "light_shift_phase", "qudits": list(self.qudits), "levels": list(levels)}
         return {"kind": "diagonal", "qudits": list(self.qudits), "table": self.h.tolist()}

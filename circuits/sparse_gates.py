@@ -151,6 +151,28 @@ class SparseGeneratorGate(Gate):
     def generator(self) -> np.ndarray:
         return self.g.toarray()
 
+    def two_state_form(self) -> tuple[np.ndarray, ...] | None:
+        """The generator as isolated states and coupled pairs, if its coupling graph has no
+        component larger than two: ``(single, h, first, second, h00, h11, h01)`` — the isolated
+        states and their diagonal entries, then each pair's states and its 2 x 2 entries
+        (``h01 = G[first, second]``, non-zero); None otherwise (used by the compiled kernel)."""
+        cached = self.__dict__.get("_two_state")
+        if cached is None:
+            cached = self._two_state = (self._find_two_state(),)
+        return cached[0]
+
+    def _find_two_state(self) -> tuple[np.ndarray, ...] | None:
+        mat = self.g
+        diag = mat.diagonal()
+        off = sp.triu(sp.coo_matrix(mat - sp.diags(diag)), k=1).tocoo()
+        off.eliminate_zeros()
+        degree = np.bincount(np.concatenate([off.row, off.col]), minlength=self.dim)
+        if degree.max(initial=0) > 1:
+            return None
+        single = np.flatnonzero(degree == 0)
+        return (single, diag[single].real.copy(), off.row.astype(np.int64), off.col.astype(np.int64),
+                diag[off.row].real.copy(), diag[off.col].real.copy(), off.data.astype(np.complex128))
+
     def _phases(self, t: float) -> np.ndarray:
         """``exp(-i t h)`` of a diagonal generator; the last two angles are cached
         (fixed-angle circuits and forward/backward passes reuse them)."""

@@ -18,13 +18,15 @@ VARIATIONAL_KEYS = ("family", "layers", "angles", "dt", "t_final", "tolerance", 
                     "maxiter", "restarts", "mode", "max_layers", "criterion", "observable_tolerance",
                     "entangler", "entangler_levels", "trotter_orders", "trotter_max_steps",
                     "compile", "compile_fidelity", "shots_error", "seed", "hardware_profile",
-                    "compare_families", "fast_fit", "noise_sizing")
+                    "compare_families", "fast_fit", "noise_sizing", "workers")
 #: Bounds of our choosing that keep every run finite (documented in the README):
 #: depth D, fitted steps T/dt, optimizer iterations, restarts and Trotter steps.
 MAX_LAYERS = 200
 MAX_STEPS = 10_000
 MAX_ITERATIONS = 1_000_000
 MAX_RESTARTS = 100
+#: Most worker processes ``size`` starts (a bound of our choosing).
+MAX_WORKERS = 256
 MAX_TROTTER_STEPS = 1_000_000
 #: Smallest shot-count standard error (1/ε² shots; 1e-6 is already 1e12 shots).
 MIN_SHOTS_ERROR = 1e-6
@@ -40,6 +42,11 @@ class VariationalSettings:
     ``fast_fit``: the fast step fits of :func:`lgt.variational.stepper.fit_trajectory` (stall
     stop, restarts only at stationary points) and the tighter depth abort of
     :func:`lgt.variational.sizing.size_depth`; ``false`` runs the plain fits (for comparisons).
+
+    ``workers``: processes ``fluxline size`` fits depths and families on (0, the default: min(2,
+    usable cores) for fit spaces of at least
+    :data:`lgt.variational.parallel.PARALLEL_MIN_DIMENSION` amplitudes, else 1; 1: in this
+    process). The results are those of the serial search (:mod:`lgt.variational.parallel`).
 
     ``noise_sizing``: ``fluxline size`` also simulates every depth's native circuit under the
     profile's noise model (:func:`lgt.variational.sizing.noise_columns`; only for registers up to
@@ -76,6 +83,7 @@ class VariationalSettings:
     compare_families: bool = True
     fast_fit: bool = True
     noise_sizing: bool = True
+    workers: int = 0
 
     @property
     def n_steps(self) -> int:
@@ -161,6 +169,7 @@ def resolve_variational(config: Mapping[str, Any], levels: int) -> VariationalSe
     kw["shots_error"] = as_fraction(section.get("shots_error", d.shots_error), p + "shots_error", closed=True)
     if kw["shots_error"] < MIN_SHOTS_ERROR:
         raise ConfigError(p + "shots_error", kw["shots_error"], f"must be at least {MIN_SHOTS_ERROR:g}")
+    kw["workers"] = as_int(section.get("workers", d.workers), p + "workers", minimum=0, maximum=MAX_WORKERS)
     kw["seed"] = as_int(section.get("seed", d.seed), p + "seed", minimum=0, maximum=2 ** 32 - 1)
     prof = section.get("hardware_profile")
     if prof is not None:

@@ -143,12 +143,23 @@ def meets(settings: VariationalSettings, max_infidelity: float, max_observable_e
 
 def evaluate_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSettings, layers: int,
                    costing: Costing, progress: Callable[[int], None] | None = None,
-                   abort: float | None = None, fast: bool = True,
+                   abort: float | Callable[[], float | None] | None = None, fast: bool = True,
                    shallower: tuple[ModelAnsatz, VariationalTrajectory] | None = None,
                    ) -> tuple[DepthRow, VariationalTrajectory, ModelAnsatz]:
     """Fit D = ``layers`` over the window and summarise it (``abort``, ``fast``: see
     :func:`fit_trajectory`; ``shallower``: a fitted shallower depth whose angles, padded with
     identity layers, are offered as warm starts)."""
+    traj, seconds, ansatz = fit_depth(basis, psi0, settings, layers, progress, abort, fast, shallower)
+    return depth_row(basis, settings, ansatz, traj, seconds, costing), traj, ansatz
+
+
+def fit_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSettings, layers: int,
+              progress: Callable[[int], None] | None = None,
+              abort: float | Callable[[], float | None] | None = None, fast: bool = True,
+              shallower: tuple[ModelAnsatz, VariationalTrajectory] | None = None,
+              ) -> tuple[VariationalTrajectory, float, ModelAnsatz]:
+    """The fitted trajectory of D = ``layers``, its fit time (s) and the ansatz (see
+    :func:`evaluate_depth`)."""
     ansatz = depth_ansatz(basis, settings, layers)
     warm = None
     if shallower is not None:
@@ -158,16 +169,20 @@ def evaluate_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: Variational
     traj = fit_trajectory(ansatz, psi0, settings.dt, settings.n_steps, settings.step_tolerance,
                           settings.maxiter, settings.mode, settings.restarts, settings.seed, progress,
                           abort_infidelity=abort, fast=fast, warm=warm)
-    seconds = time.perf_counter() - t0
+    return traj, time.perf_counter() - t0, ansatz
+
+
+def depth_row(basis: PhysicalBasis, settings: VariationalSettings, ansatz: ModelAnsatz,
+              traj: VariationalTrajectory, seconds: float, costing: Costing) -> DepthRow:
+    """The sizing-table row of a fitted depth (``seconds``: its fit time)."""
     comparison = compare_to_exact(make_observer(traj, basis), traj)
     obs_err = max(comparison[name]["max_error"] for name in CRITERION_OBSERVABLES)
     cost = depth_cost(ansatz, costing)
-    row = DepthRow(layers=layers, parameters=ansatz.n_params, max_infidelity=traj.max_infidelity,
-                   final_fidelity=float(traj.fidelity[-1]), sum_step_infidelity=float(traj.step_infidelity.sum()),
-                   max_leakage=float(traj.leakage.max()), max_observable_error=obs_err, fit_seconds=seconds,
-                   meets_tolerance=meets(settings, traj.max_infidelity, obs_err), reached_time=float(traj.times[-1]),
-                   **CostColumns.of(cost, float(np.min(traj.fidelity))))
-    return row, traj, ansatz
+    return DepthRow(layers=ansatz.layers, parameters=ansatz.n_params, max_infidelity=traj.max_infidelity,
+                    final_fidelity=float(traj.fidelity[-1]), sum_step_infidelity=float(traj.step_infidelity.sum()),
+                    max_leakage=float(traj.leakage.max()), max_observable_error=obs_err, fit_seconds=seconds,
+                    meets_tolerance=meets(settings, traj.max_infidelity, obs_err), reached_time=float(traj.times[-1]),
+                    **CostColumns.of(cost, float(np.min(traj.fidelity))))
 
 
 def trotter_cost(basis: PhysicalBasis, term_costs: dict[str, TermCost], steps: int, order: int) -> CircuitCost:
@@ -293,30 +308,50 @@ def best_simulated(rows: list[DepthRow], t_final: float) -> int | None:
     return min(done, key=lambda r: r.predicted_observable_error).layers if done else None
 
 
-def add_noise_sizing(basis: PhysicalBasis, settings: VariationalSettings, profile, rows: list[DepthRow],
-                     trajectories: dict[int, VariationalTrajectory],
-                     log: Callable[[str], None] | None = None) -> int | None:
-    """Fill the noise columns of ``rows`` (when ``noise_sizing`` and the register is small
-    enough) and return :func:`best_simulated`."""
+def simulates_noise(basis: PhysicalBasis, settings: VariationalSettings,
+                    log: Callable[[str], None] | None = None) -> bool:
+    """Whether ``size`` simulates this family's depths under noise (``noise_sizing`` and a
+    register of at most :data:`NOISE_SIZING_MAX_STRINGS` strings; a log line says when not)."""
     if not settings.noise_sizing or basis.register_dimension > NOISE_SIZING_MAX_STRINGS:
         if settings.noise_sizing and log:
             log(f"noise sizing skipped: register of {basis.register_dimension:,} strings exceeds "
                 f"{NOISE_SIZING_MAX_STRINGS:,}")
-        return None
+        return False
+    return True
+
+
+def depth_noise_columns(basis: PhysicalBasis, settings: VariationalSettings, profile, layers: int,
+                        traj: VariationalTrajectory) -> dict[str, float]:
+    """:func:`noise_columns` of one depth under the profile's noise model, at
+    :func:`sizing_shots` shots (raises ``NotDecomposable`` when the family has no native export)."""
     from lgt.lab.noise import lab_noise
 
+    return noise_columns(basis, settings, profile, lab_noise(settings.hardware_profile), layers, traj,
+                         sizing_shots(settings))
+
+
+def add_noise_sizing(basis: PhysicalBasis, settings: VariationalSettings, profile, rows: list[DepthRow],
+                     trajectories: dict[int, VariationalTrajectory],
+                     log: Callable[[str], None] | None = None,
+                     columns: Callable[[int], dict[str, float]] | None = None) -> int | None:
+    """Fill the noise columns of ``rows`` (when :func:`simulates_noise`) and return
+    :func:`best_simulated`. ``columns(layers)`` gives a depth's columns (default: simulated here
+    by :func:`depth_noise_columns`; parallel sizing passes results computed by its workers)."""
+    if not simulates_noise(basis, settings, log):
+        return None
     from circuits.native import NotDecomposable
 
-    noise = lab_noise(settings.hardware_profile)
+    if columns is None:
+        columns = (lambda layers: depth_noise_columns(basis, settings, profile, layers, trajectories[layers]))
     shots = sizing_shots(settings)
     for row in rows:
         try:
-            columns = noise_columns(basis, settings, profile, noise, row.layers, trajectories[row.layers], shots)
+            values = columns(row.layers)
         except NotDecomposable as exc:  # a lab could not run it either: leave the columns empty
             if log:
                 log(f"noise sizing of {settings.family} layers skipped: no native export ({exc})")
             return None
-        for name, value in columns.items():
+        for name, value in values.items():
             setattr(row, name, value)
         if log:
             log(f"{settings.family} D = {row.layers} under noise: F {row.noisy_fidelity:.4f}, post-selected "
@@ -325,10 +360,85 @@ def add_noise_sizing(basis: PhysicalBasis, settings: VariationalSettings, profil
     return best_simulated(rows, settings.t_final)
 
 
+class DepthScan:
+    """The depth search of one family (:func:`size_depth`), fed with fitted depths in order.
+
+    :meth:`next_depth` is the depth the search fits next (None once it is finished: one depth
+    past the first meeting the tolerance, or ``max_layers``); :meth:`abort` is that depth's
+    abort bound given the shallower depths (:func:`abort_thresholds` and, with ``fast``, the best
+    total fidelity B so far); :meth:`add` takes a fitted depth, cut at its bound
+    (:func:`~lgt.variational.stepper.truncated`, so a fit run with a looser bound gives the same
+    row), and returns its row and log line.
+    """
+
+    def __init__(self, basis: PhysicalBasis, settings: VariationalSettings, costing: Costing,
+                 fast: bool = True) -> None:
+        self.basis, self.settings, self.costing, self.fast = basis, settings, costing, fast
+        self.thresholds = abort_thresholds(basis, settings, costing)
+        self.noise = noise_fidelities(basis, settings, costing)
+        self.rows: list[DepthRow] = []
+        self.trajectories: dict[int, VariationalTrajectory] = {}
+        self.chosen: int | None = None
+        self.best_total = 0.0
+        self.finished = False
+
+    def next_depth(self) -> int | None:
+        if self.finished:
+            return None
+        return len(self.rows) + 1
+
+    def abort(self, layers: int, best_total: float | None = None) -> float | None:
+        """Abort bound of depth ``layers`` when the best total fidelity of the shallower depths
+        is ``best_total`` (default: of the depths added so far)."""
+        best = self.best_total if best_total is None else best_total
+        abort = self.thresholds[layers]
+        if self.fast and abort is not None and self.noise[layers] > 0:
+            abort = max(self.settings.tolerance, min(abort, 1.0 - best / self.noise[layers]))
+        return abort
+
+    def add(self, layers: int, traj: VariationalTrajectory, seconds: float,
+            ansatz: ModelAnsatz | None = None) -> tuple[DepthRow, str]:
+        from lgt.variational.stepper import truncated
+
+        if layers != self.next_depth():
+            raise ValueError(f"depth {layers} added out of order (expected {self.next_depth()})")
+        traj = truncated(traj, self.abort(layers))
+        ansatz = ansatz or depth_ansatz(self.basis, self.settings, layers)
+        row = depth_row(self.basis, self.settings, ansatz, traj, seconds, self.costing)
+        self.best_total = max(self.best_total, row.total_fidelity)
+        self.rows.append(row)
+        self.trajectories[layers] = traj
+        if self.chosen is not None:
+            self.finished = True  # one layer past the chosen depth shows the budget trend
+        elif row.meets_tolerance:
+            self.chosen = layers
+        self.finished = self.finished or layers == self.settings.max_layers
+        message = (f"{self.settings.family} D = {layers}: max infidelity {row.max_infidelity:.2e}, "
+                   f"{row.two_qudit_gates} two-qudit gates, {row.fit_seconds:.1f} s")
+        return row, message
+
+    def result(self, psi0: np.ndarray, baselines: bool, log: Callable[[str], None] | None = None,
+               columns: Callable[[int], dict[str, float]] | None = None) -> SizingResult:
+        """The family's :class:`SizingResult`: noise sizing (``columns``: see
+        :func:`add_noise_sizing`) and, with ``baselines``, the Trotter baseline and shots."""
+        from lgt.variational.shots import shots_needed
+
+        basis, settings, rows = self.basis, self.settings, self.rows
+        best = max(rows, key=lambda r: r.total_fidelity).layers if rows else None
+        simulated = add_noise_sizing(basis, settings, self.costing.profile, rows, self.trajectories, log, columns)
+        if not baselines:
+            return SizingResult(rows, self.chosen, best, [], {}, self.trajectories, simulated)
+        trotter = trotter_rows(basis, psi0, settings, self.costing.terms())
+        reference = self.trajectories[self.chosen if self.chosen is not None else rows[-1].layers]
+        shots = shots_needed(basis, reference.exact_states, settings.shots_error)
+        return SizingResult(rows, self.chosen, best, trotter, shots, self.trajectories, simulated)
+
+
 def size_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSettings,
                costing: Costing, log: Callable[[str], None] | None = None,
                baselines: bool = True, fast: bool = True, warm_starts: bool | None = None) -> SizingResult:
-    """Scan D = 1 … max_layers until the tolerance is met (plus one deeper for the budget).
+    """Scan D = 1 … max_layers until the tolerance is met (plus one deeper for the budget), in
+    this process (:mod:`lgt.variational.parallel` runs the same search on worker processes).
 
     ``baselines=False`` skips the Trotter baseline and the shot counts (used when further
     layer families are sized for comparison). ``fast``: the fast step fits; with
@@ -336,40 +446,16 @@ def size_depth(basis: PhysicalBasis, psi0: np.ndarray, settings: VariationalSett
     plus an identity layer.
     """
     warm_starts = WARM_STARTS if warm_starts is None else warm_starts
-    from lgt.variational.shots import shots_needed
-
-    rows: list[DepthRow] = []
-    trajectories: dict[int, VariationalTrajectory] = {}
-    chosen = None
-    thresholds = abort_thresholds(basis, settings, costing)
-    noise = noise_fidelities(basis, settings, costing)
+    scan = DepthScan(basis, settings, costing, fast)
     shallower = None
-    best_total = 0.0
-    for layers in range(1, settings.max_layers + 1):
-        abort = thresholds[layers]
-        if fast and abort is not None and noise[layers] > 0:
-            abort = max(settings.tolerance, min(abort, 1.0 - best_total / noise[layers]))
-        row, traj, ansatz = evaluate_depth(basis, psi0, settings, layers, costing, getattr(log, "step", None), abort=abort,
-                                           fast=fast, shallower=shallower if fast and warm_starts else None)
+    while (layers := scan.next_depth()) is not None:
+        traj, seconds, ansatz = fit_depth(basis, psi0, settings, layers, getattr(log, "step", None),
+                                          scan.abort(layers), fast, shallower if fast and warm_starts else None)
         shallower = (ansatz, traj)
-        best_total = max(best_total, row.total_fidelity)
-        rows.append(row)
-        trajectories[layers] = traj
+        _, message = scan.add(layers, traj, seconds, ansatz)
         if log:
-            log(f"{settings.family} D = {layers}: max infidelity {row.max_infidelity:.2e}, {row.two_qudit_gates} two-qudit gates, "
-                f"{row.fit_seconds:.1f} s")
-        if chosen is not None:
-            break  # one layer past the chosen depth, to show the budget trend
-        if row.meets_tolerance:
-            chosen = layers
-    best = max(rows, key=lambda r: r.total_fidelity).layers if rows else None
-    simulated = add_noise_sizing(basis, settings, costing.profile, rows, trajectories, log)
-    if not baselines:
-        return SizingResult(rows, chosen, best, [], {}, trajectories, simulated)
-    trotter = trotter_rows(basis, psi0, settings, costing.terms())
-    reference = trajectories[chosen if chosen is not None else rows[-1].layers]
-    shots = shots_needed(basis, reference.exact_states, settings.shots_error)
-    return SizingResult(rows, chosen, best, trotter, shots, trajectories, simulated)
+            log(message)
+    return scan.result(psi0, baselines, log)
 
 
 def rows_table(row_type: type, rows: list, description: str) -> Table:

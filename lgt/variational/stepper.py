@@ -10,7 +10,9 @@ directly to the exact state (also warm-started). Step errors compound,
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass
+from math import comb
+from dataclasses import dataclass, fields
+from typing import Callable
 
 import numpy as np
 
@@ -66,6 +68,45 @@ class VariationalTrajectory:
         return float(np.max(1.0 - self.fidelity))
 
 
+#: Highest order of the polynomial extrapolations of the angles offered as a step's start
+#: (1: θ_k + (θ_k − θ_{k−1}); 2 adds the quadratic 3θ_k − 3θ_{k−1} + θ_{k−2}).
+EXTRAPOLATION_ORDER = 1
+
+
+def start_candidates(history: np.ndarray, order: int | None = None) -> list[np.ndarray]:
+    """Start angles offered to the next step's fit, given the fitted angles so far (rows
+    θ_0 … θ_k): the polynomial extrapolations in time through the last 2, …, ``order`` + 1
+    points (Newton's backward differences on the uniform grid), then θ_k itself."""
+    order = EXTRAPOLATION_ORDER if order is None else order
+    k = len(history) - 1
+    out = []
+    for m in range(min(order, k), 0, -1):
+        # the degree-m polynomial through θ_{k−m} … θ_k, evaluated at k + 1: Σ_j (−1)^j C(m+1, j+1) θ_{k−j}
+        if m == 1:
+            out.append(history[k] + (history[k] - history[k - 1]))
+            continue
+        coeffs = [(-1) ** j * comb(m + 1, j + 1) for j in range(m + 1)]
+        out.append(sum(c * history[k - j] for j, c in enumerate(coeffs)))
+    if k == 0:
+        out.append(history[0] + 0.0)  # no history yet: the zero update (as the extrapolation before)
+    out.append(history[k])
+    return out
+
+
+def truncated(traj: VariationalTrajectory, abort_infidelity: float | None) -> VariationalTrajectory:
+    """``traj`` as :func:`fit_trajectory` with the fixed ``abort_infidelity`` would have returned
+    it: ended at the first step whose 1 − F(t_k) exceeds the bound. Each step's fit depends only
+    on the steps before it, so a trajectory fitted with a looser (or no) bound, cut here, is the
+    one fitted with this bound (used by parallel sizing, :mod:`lgt.variational.sizing`)."""
+    if abort_infidelity is None:
+        return traj
+    over = np.flatnonzero(1.0 - traj.fidelity[1:] > abort_infidelity)
+    if over.size == 0:
+        return traj
+    end = int(over[0]) + 2
+    return VariationalTrajectory(**{f.name: getattr(traj, f.name)[:end] for f in fields(traj)})
+
+
 def exact_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: int) -> np.ndarray:
     """Exact physical-subspace states at t_k = k dt, shape (n_steps + 1, dim) (one exact
     propagator, :func:`lgt.propagation.evolve_states`)."""
@@ -76,7 +117,7 @@ def exact_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: 
 def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: int,
                    step_tolerance: float, maxiter: int = 300, mode: str = "dynamics",
                    restarts: int = 1, seed: int = 0, progress=None,
-                   abort_infidelity: float | None = None, fast: bool = True,
+                   abort_infidelity: float | Callable[[], float | None] | None = None, fast: bool = True,
                    warm: np.ndarray | None = None) -> VariationalTrajectory:
     """Fit the ansatz step by step from the physical initial state ``psi0``.
 
@@ -91,7 +132,10 @@ def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: in
         the identity point of native brickwork layers); the best fit is kept.
     progress : optional callable ``progress(k)`` after each step.
     abort_infidelity : stop early once 1 − F(t_k) against the exact state exceeds this (the
-        window can no longer meet that tolerance); the trajectory then ends at that step.
+        window can no longer meet that tolerance); the trajectory then ends at that step. A
+        callable is asked after every step (a bound that may tighten while the fit runs, e.g.
+        from depths fitted in parallel; :func:`truncated` cuts such a trajectory at a fixed
+        bound afterwards).
     fast : the fast path: stall stop and restarts only when stuck (see :data:`STALL_WINDOW`,
         :func:`_fit_step_fast`); ``False`` is the plain path (every step to its threshold or
         ``maxiter``, every missed step restarted).
@@ -123,8 +167,7 @@ def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: in
     for k in range(n_steps):
         t0 = time.perf_counter()
         target = stepper.step(current, dt) if stepper is not None else ansatz.embed(exact[k + 1])
-        start = params[k] + (params[k] - params[k - 1] if k > 0 else 0.0)
-        candidates = [start, params[k]]
+        candidates = start_candidates(params[:k + 1])
         if warm is not None and k + 1 < len(warm):
             candidates.append(warm[k + 1])
         guess = _better_start(circuit, v0, target, candidates)
@@ -143,7 +186,8 @@ def fit_trajectory(ansatz: ModelAnsatz, psi0: np.ndarray, dt: float, n_steps: in
         wall[k + 1] = time.perf_counter() - t0
         if progress is not None:
             progress(k + 1)
-        if abort_infidelity is not None and 1.0 - fidelity[k + 1] > abort_infidelity:
+        bound = abort_infidelity() if callable(abort_infidelity) else abort_infidelity
+        if bound is not None and 1.0 - fidelity[k + 1] > bound:
             T = k + 2
             break
     if stepper is not None:

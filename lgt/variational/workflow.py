@@ -237,6 +237,7 @@ def run_size(resolved: Mapping[str, Any], log=None) -> RunResult:
     """
     from dataclasses import replace
 
+    from lgt.variational.parallel import size_families, sizing_workers
     from lgt.variational.sizing import size_depth
 
     resolved = validate_variational_config(resolved)
@@ -245,12 +246,15 @@ def run_size(resolved: Mapping[str, Any], log=None) -> RunResult:
     costing = _costing(params, settings, profile)
     costs = costing.terms()
     t1 = time.perf_counter()
-    results = {settings.family: size_depth(basis, psi0, settings, costing, log, fast=settings.fast_fit)}
+    families = [settings]
     if settings.compare_families:
-        for name in available_families(params):
-            if name not in results:
-                results[name] = size_depth(basis, psi0, replace(settings, family=name), costing, log,
-                                           baselines=False, fast=settings.fast_fit)
+        families += [replace(settings, family=name) for name in available_families(params) if name != settings.family]
+    workers = sizing_workers(settings, basis)
+    if workers > 1:
+        results = size_families(basis, psi0, families, costing, log, settings.fast_fit, workers)
+    else:
+        results = {s.family: size_depth(basis, psi0, s, costing, log, baselines=s is settings, fast=settings.fast_fit)
+                   for s in families}
     t2 = time.perf_counter()
     result = results[settings.family]
     arrays = {}

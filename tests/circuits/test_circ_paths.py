@@ -1,4 +1,4 @@
-"""The evaluation paths (block-fused, per-gate flat, strided slices; the last with all,
+"""The evaluation paths (compiled kernel, block-fused, per-gate flat, strided slices; the last with all,
 some or none of the forward pass kept for the adjoint gradient) agree with dense
 references: products of scipy.linalg.expm and central finite differences."""
 from __future__ import annotations
@@ -15,11 +15,16 @@ from circuits.random_circuits import random_circuit, random_hermitian, random_st
 from circuits.register import Space, embed_local
 from test_circ_gradient import finite_difference  # central differences, O(h^2)
 
-PATHS = ["fused", "flat", "slices", "slices-capped", "slices-unkept"]
+PATHS = ["kernel", "fused", "flat", "slices", "slices-capped", "slices-unkept"]
 
 
 @pytest.fixture(params=PATHS)
 def path(request, monkeypatch):
+    if request.param == "kernel":
+        if not circuit_mod.HAVE_NUMBA:
+            pytest.skip("numba not installed")
+        return request.param
+    monkeypatch.setattr(circuit_mod, "USE_KERNEL", False)
     if request.param != "fused":
         monkeypatch.setattr(circuit_mod, "FUSE_REGISTER", False)
     if request.param.startswith("slices"):
