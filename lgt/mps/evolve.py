@@ -198,13 +198,16 @@ def run_mps_evolution(resolved: Mapping[str, Any], progress: bool = False,
         records: list[dict[str, Any]] = []
         bar = _progress_bar(times.size, progress)
         t_now = 0.0
+        observe = 0.0
         try:
             for index, t in enumerate(times):
                 evolver.evolve(psi, float(t) - t_now)
                 t_now = float(t)
                 if callback is not None:
                     callback(index, psi)
+                tm = time.perf_counter()
                 records.append(observer.measure(psi))
+                observe += time.perf_counter() - tm
                 bar.update(1)
         finally:
             bar.close()
@@ -239,7 +242,8 @@ def run_mps_evolution(resolved: Mapping[str, Any], progress: bool = False,
                   "estimated_bytes": est_bytes, "estimated_seconds": est_seconds}
     return RunResult(task="evolve", parameters=dict(resolved), series=series,
                      arrays={"field_values": params.field_values}, attributes=attributes,
-                     timings={"build": t1 - t0, "prepare": t2 - t1, "evolve": t3 - t2})
+                     timings={"build": t1 - t0, "prepare": t2 - t1, "evolve": t3 - t2 - observe,
+                              "observe": observe})
 
 
 __all__ = ["resolve_mps_evolution", "run_mps_evolution", "MPSObserver", "initial_mps", "MPS_KEYS",
