@@ -9,8 +9,8 @@ a product state, so nothing stalls). Observables per stored time, from one canon
 echo and rate, entanglement (von Neumann and Rényi-2) at the configured cut, energy (MPO), norm.
 ``charge_correlation`` (⟨Q_i Q_j⟩ − ⟨Q_i⟩⟨Q_j⟩) is opt-in (name it in ``observables``): by the linear
 Gauss law it is the double difference of the link-field covariance, one O(K² d χ³) transfer-matrix
-pass per stored time (:meth:`ChainMPS.diagonal_covariance`; measured ≈ 15 % of the evolution cost
-at N = 100, χ = 64, docs/mps.md). Extra series: ``entanglement_profile`` (von Neumann
+pass per stored time (:meth:`ChainMPS.diagonal_covariance`; ≈ 15–20 % of the evolution cost, measured
+at N = 40 and scaled by K² to N = 100, χ = 64, docs/mps.md). Extra series: ``entanglement_profile`` (von Neumann
 at every cut 1..K−1), ``bond_dimension`` (largest χ), ``discarded_weight`` (summed since t = 0),
 ``energy_drift`` (|E(t) − E(0)| / max(|E(0)|, 1)) and ``leakage`` (weight outside the
 physical subspace, 1 − ⟨P⟩).
