@@ -2,10 +2,19 @@
 
 Bond dimensions are capped by χ and by the register itself: χ_b ≤ min(χ, d^b, d^(K−b)).
 Memory: the MPS (Σ_b χ_b d χ_{b+1} complex numbers), a few gate workspaces of χ² d³ complex
-numbers, the cached gates and the interpreter baseline. Time: one 3-link gate costs about
-``GATE_FLOPS`` · (d χ)² · d² χ floating-point operations (two truncated Gram splits dominate); a Suzuki
-fourth-order step applies about (20/3)·K gates (second order: (4/3)·K). ``FLOP_RATE`` is a
-measured single-core throughput on this project's development machine (replace with yours).
+numbers, the cached gates and the interpreter baseline.
+
+Time (a realistic estimate, not a bound): the run's single-core CPU seconds, i.e. its wall
+time on an idle machine. A quench from a product state starts at χ = 1; the bond dimension is
+modelled as growing like χ(t) = e^{t/τ} (τ = :data:`GROWTH_TIME`, entanglement growing linearly
+in t) until it meets the cap min(χ, d^b, d^(K−b)) of each bond. One 3-link gate costs
+``GATE_OVERHEAD + GATE_CUBIC · (d/3)⁴ · χ³`` CPU seconds (fit to the measured cost of saturated
+gates, χ = 8…128, d = 3); a fourth-order step applies 7 layers per group (21 layers, 7·(K−2)
+gates; second order 4/3·(K−2) per step plus one layer per stored interval), and each stored
+time costs :data:`MEASURE_GATES` gate-equivalents per link (canonical sweep, MPO energy, leakage
+and echo). The constants are calibrated on this project's shared development machine (how:
+docs/mps.md "Guards"); replace them with your machine's. On a shared machine multiply by the
+load factor (the estimate printed with the progress bar does so).
 """
 
 from __future__ import annotations
@@ -14,12 +23,16 @@ import numpy as np
 
 from lgt.resources import BASELINE_BYTES
 
-#: Effective flops per (dχ)²·d²χ of one gate (two Gram splits and the contractions), measured at χ = 64.
-GATE_FLOPS = 14.0
-#: Flop rate one process got on the shared 2-core development machine (load ≈ 10); illustrative.
-FLOP_RATE = 2.0e9
-#: Gates per Trotter step per link, by order (layer count of the merged product / 3).
-GATES_PER_LINK = {2: 4.0 / 3.0, 4: 20.0 / 3.0}
+#: CPU seconds of one 3-link gate independent of χ (Python and call overhead); measured, d = 3.
+GATE_OVERHEAD = 6.0e-4
+#: CPU seconds per χ³ of one saturated 3-link gate at d = 3 (12.3 ms at χ = 64, 93 ms at χ = 128).
+GATE_CUBIC = 6.8e-8
+#: Growth time τ of the bond dimension, χ(t) ≈ e^{t/τ}, lattice time units (fit, docs/mps.md).
+GROWTH_TIME = 0.75
+#: Measurement cost per stored time, in gate-equivalents per link (fit, docs/mps.md).
+MEASURE_GATES = 0.5
+#: Merged layers per Trotter step, by order (Suzuki's five second-order stages share 4 layers).
+LAYERS_PER_STEP = {2: 4, 4: 20}
 
 
 def bond_profile(n_links: int, d: int, chi: int) -> np.ndarray:
@@ -38,11 +51,34 @@ def estimate_mps_memory(n_links: int, d: int, chi: int) -> int:
     return int(3 * state + work + gates + BASELINE_BYTES)
 
 
-def estimate_mps_seconds(n_links: int, d: int, chi: int, steps: int, order: int = 4) -> float:
-    """Rough wall seconds of ``steps`` Trotter steps at the full bond profile (an upper estimate)."""
-    prof = bond_profile(n_links, d, chi)
-    per_gate = GATE_FLOPS * float(np.mean(prof ** 3)) * d ** 4
-    return float(steps * GATES_PER_LINK[order] * n_links * per_gate / FLOP_RATE)
+def gate_seconds(n_links: int, d: int, chi: int, t: float, start_chi: float = 1.0) -> float:
+    """Mean CPU seconds of one gate at time ``t`` (bond profile grown from ``start_chi``)."""
+    cap = bond_profile(n_links, d, chi)
+    grown = np.minimum(cap, start_chi * np.exp(min(t / GROWTH_TIME, 60.0)))
+    return GATE_OVERHEAD + GATE_CUBIC * (d / 3.0) ** 4 * float(np.mean(grown ** 3))
 
 
-__all__ = ["estimate_mps_memory", "estimate_mps_seconds", "bond_profile", "GATE_FLOPS", "FLOP_RATE"]
+def estimate_mps_seconds(n_links: int, d: int, chi: int, times: np.ndarray, max_step: float,
+                         order: int = 4, start_chi: float = 1.0) -> float:
+    """Estimated single-core CPU seconds of an evolution storing ``times`` (see module docstring).
+
+    ``start_chi``: bond dimension of the initial state (1 for product states, the DMRG
+    bond dimension for ``kind = "ground"``).
+    """
+    times = np.asarray(times, dtype=float)
+    windows = max(n_links - 2, 1)
+    total, t_prev = 0.0, 0.0
+    for t in times:
+        gap = t - t_prev
+        if gap > 0:
+            n = max(1, int(np.ceil(gap / max_step - 1e-9)))
+            layers = n * LAYERS_PER_STEP[order] + 1
+            mid = t_prev + 0.5 * gap
+            total += layers * windows / 3.0 * gate_seconds(n_links, d, chi, mid, start_chi)
+        total += MEASURE_GATES * n_links * gate_seconds(n_links, d, chi, t, start_chi)
+        t_prev = t
+    return float(total)
+
+
+__all__ = ["estimate_mps_memory", "estimate_mps_seconds", "gate_seconds", "bond_profile",
+           "GATE_OVERHEAD", "GATE_CUBIC", "GROWTH_TIME", "MEASURE_GATES"]
