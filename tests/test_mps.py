@@ -376,6 +376,29 @@ def test_spectrum_task_with_dmrg():
     assert np.abs(result.arrays["energies"] - exact).max() < 1e-8
 
 
+def test_unconverged_dmrg_levels_are_flagged():
+    """A bond-dimension cap far too small for the excited states: warning and flag, not silence.
+    Converged levels pass (variance ⟨H²⟩ − ⟨H⟩² ≥ (distance to the nearest exact level)², the
+    Krylov–Weinstein bound, textbook: Parlett, The Symmetric Eigenvalue Problem, 1998)."""
+    pytest.importorskip("tenpy")
+    from lgt.mps.dmrg import VARIANCE_LIMIT
+    from lgt.tasks import get_task
+
+    task = get_task("spectrum")
+    model = {"sites": 10, "mass": 0.3, "theta": 0.7}
+    good = task.run(task.validate({"model": model, "spectrum": {"count": 3, "method": "mps",
+                                                                "bond_dimension": 32}}))
+    assert not good.attributes["flag_unconverged"]
+    assert good.arrays["variance"].max() < VARIANCE_LIMIT
+    with pytest.warns(RuntimeWarning, match="not converged"):
+        poor = task.run(task.validate({"model": model, "spectrum": {"count": 3, "method": "mps",
+                                                                    "bond_dimension": 2}}))
+    assert poor.attributes["flag_unconverged"]
+    exact = exact_levels(ModelParams(**model), 20)  # the bound names some level, not always a low one
+    for energy, variance in zip(poor.arrays["energies"], poor.arrays["variance"]):
+        assert np.abs(exact - energy).min() <= np.sqrt(variance) + 1e-10
+
+
 def test_tenpy_round_trip():
     """ChainMPS → tenpy MPS (canonical: tenpy's own norm test) → ChainMPS keeps the state."""
     pytest.importorskip("tenpy")

@@ -10,9 +10,10 @@ from lgt.commands import config_command, resolve, write_output
 
 
 def spectrum_summary(result) -> dict:
-    """JSON object of a spectrum run: model, dimensions, energies, gaps, timings."""
+    """JSON object of a spectrum run: model, dimensions, energies, gaps, timings; for
+    ``method = "mps"`` also the DMRG variance per level and ``"converged"``."""
     model = result.parameters["model"]
-    return {
+    summary = {
         "model": model,
         "dimension": result.attributes["dimension"],
         "register_dimension": model["levels"] ** (model["sites"] - 1),
@@ -21,6 +22,11 @@ def spectrum_summary(result) -> dict:
         "build_seconds": result.timings["build"],
         "solve_seconds": result.timings["solve"],
     }
+    if result.attributes.get("method") == "mps":  # lgt.mps.dmrg.run_spectrum_task
+        summary.update({"variance": result.arrays["variance"].tolist(),
+                        "max_bond": result.arrays["max_bond"].tolist(),
+                        "converged": not result.attributes["flag_unconverged"]})
+    return summary
 
 
 def _run(args: argparse.Namespace) -> int:
@@ -43,10 +49,13 @@ def _run(args: argparse.Namespace) -> int:
           f"J = {m['coupling']}, theta = {m['theta']}, eps = {m['boundary_field']}")
     print(f"physical subspace: {summary['dimension']} of {summary['register_dimension']} register states "
           f"(built in {summary['build_seconds']:.2f} s)")
-    print(f"{'level':>5}  {'energy':>16}  {'gap':>14}")
+    variance = summary.get("variance")  # DMRG runs only
+    print(f"{'level':>5}  {'energy':>16}  {'gap':>14}" + (f"  {'variance':>9}" if variance else ""))
     e0 = summary["energies"][0]
     for k, e in enumerate(summary["energies"]):
-        print(f"{k:>5}  {e:>16.10f}  {e - e0:>14.10f}")
+        print(f"{k:>5}  {e:>16.10f}  {e - e0:>14.10f}" + (f"  {variance[k]:>9.1e}" if variance else ""))
+    if variance and not summary["converged"]:
+        print("NOT CONVERGED: some levels exceed the DMRG variance limit (see the warning above)")
     if args.output:
         print(f"wrote {args.output}")
     return 0

@@ -14,6 +14,7 @@ as tenpy's orthogonal projection requires.
 from __future__ import annotations
 
 import logging
+import warnings
 from dataclasses import dataclass, field
 from typing import Any, Mapping
 
@@ -41,6 +42,11 @@ EXCITED_SWEEPS = 8
 #: Largest tolerated weight outside the physical subspace before the penalty is raised.
 LEAKAGE_LIMIT = 1e-6
 PENALTY_ROUNDS = 4
+#: Largest energy variance ⟨H²⟩ − ⟨H⟩² (lattice units²) of a level reported as converged. By the
+#: Krylov–Weinstein bound an exact level lies within √variance (here 1e-3) of the energy, and
+#: within variance / gap of it when the gap to the next level is known; converged DMRG states
+#: here reach 1e-10 or less (measured, N ≤ 20). Larger: a warning and a flag.
+VARIANCE_LIMIT = 1e-6
 
 
 @dataclass
@@ -62,6 +68,11 @@ class DMRGResult:
     sweeps: list[int] = field(default_factory=list)
     dmrg_energies: np.ndarray = field(default_factory=lambda: np.zeros(0))
     variance: list[float] = field(default_factory=list)
+
+    @property
+    def unconverged(self) -> list[int]:
+        """Indices (ascending energy order) of levels whose variance exceeds :data:`VARIANCE_LIMIT`."""
+        return [i for i, v in enumerate(self.variance) if v > VARIANCE_LIMIT]
 
 
 def tenpy_sites(params: ModelParams) -> list:
@@ -136,8 +147,10 @@ def engine_options(chi: int, energy_tolerance: float, excited: bool) -> dict[str
     98 s CPU with it, 9 s without, same energy to 2e-12; measured). Excited states get a χ ramp
     (their unconverged near-degenerate mixtures otherwise fill the cap at once), longer Lanczos
     runs and few sweeps; the Rayleigh–Ritz step corrects what is left (:func:`ritz_step`).
+    tenpy's own truncation check (``max_trunc_err``, an exception after the run) is off: a too
+    small cap is reported by the variance of each level instead (:data:`VARIANCE_LIMIT`).
     """
-    options = {"mixer": False, "diag_method": "lanczos", "max_E_err": energy_tolerance, "max_S_err": 1e-5,
+    options = {"mixer": False, "max_trunc_err": float("inf"), "diag_method": "lanczos", "max_E_err": energy_tolerance, "max_S_err": 1e-5,
                "min_sweeps": 3, "max_sweeps": GROUND_SWEEPS, "combine": True,
                "trunc_params": {"chi_max": chi, "svd_min": SCHMIDT_CUTOFF},
                "lanczos_params": {"N_max": 20, "E_tol": 1e-13}}
@@ -251,8 +264,14 @@ def _lowest_states(params: ModelParams, count: int, chi: int, energy_tolerance: 
     values, coefficients = ritz_step(found, hamiltonian)
     states = rotate_states(found, coefficients, chi)
     variance = [float(np.real(hamiltonian.variance(psi, exp_val=E))) for psi, E in zip(states, values)]
-    return DMRGResult(np.asarray(values, dtype=float), [from_tenpy(p) for p in states], info["chi"], info["err"],
-                      info["leak"], penalty, info["sweeps"], np.asarray(energies), variance)
+    result = DMRGResult(np.asarray(values, dtype=float), [from_tenpy(p) for p in states], info["chi"], info["err"],
+                        info["leak"], penalty, info["sweeps"], np.asarray(energies), variance)
+    if result.unconverged:
+        worst = max(variance)
+        warnings.warn(f"DMRG levels {result.unconverged} not converged: energy variance up to {worst:.2e} "
+                      f"(limit {VARIANCE_LIMIT:g}; the level may be off by up to {np.sqrt(worst):.1e}); "
+                      "raise bond_dimension or ask for fewer levels", RuntimeWarning, stacklevel=2)
+    return result
 
 
 def ground_state(params: ModelParams, chi: int = DEFAULT_DMRG_CHI) -> tuple[float, ChainMPS]:
@@ -317,7 +336,8 @@ def spectrum_result(params: ModelParams, count: int, chi: int) -> dict[str, Any]
             "energies": [float(e) for e in energies], "gaps": [float(e - energies[0]) for e in energies],
             "build_seconds": 0.0, "solve_seconds": t1 - t0, "method": "mps", "bond_dimension": chi,
             "max_bond": [int(c) for c in res.max_bond], "truncation_error": [float(e) for e in res.truncation_error],
-            "leakage": [float(x) for x in res.leakage]}
+            "leakage": [float(x) for x in res.leakage], "variance": [float(v) for v in res.variance],
+            "unconverged_levels": res.unconverged}
 
 
 def spectrum_summary(params: ModelParams, section: Mapping[str, Any], count: int | None = None) -> dict[str, Any]:
@@ -337,12 +357,14 @@ def run_spectrum_task(resolved: Mapping[str, Any]):
     return RunResult(task="spectrum", parameters=dict(resolved),
                      arrays={"energies": np.asarray(out["energies"]), "gaps": np.asarray(out["gaps"]),
                              "max_bond": np.asarray(out["max_bond"]),
-                             "truncation_error": np.asarray(out["truncation_error"])},
+                             "truncation_error": np.asarray(out["truncation_error"]),
+                             "variance": np.asarray(out["variance"])},
                      attributes={"dimension": out["dimension"], "levels_returned": len(out["energies"]),
-                                 "method": "mps", "max_leakage": max(out["leakage"])},
+                                 "method": "mps", "max_leakage": max(out["leakage"]),
+                                 "flag_unconverged": bool(out["unconverged_levels"])},
                      timings={"build": 0.0, "solve": out["solve_seconds"]})
 
 
 __all__ = ["DMRGResult", "lowest_states", "ground_state", "lowest_levels", "ground_energy", "meson_masses", "tenpy_sites",
            "from_tenpy", "mps_to_tenpy", "penalty_scale", "energy_bound", "DEFAULT_DMRG_CHI",
-           "resolve_solver", "spectrum_result", "spectrum_summary", "run_spectrum_task", "SOLVER_KEYS"]
+           "resolve_solver", "VARIANCE_LIMIT", "spectrum_result", "spectrum_summary", "run_spectrum_task", "SOLVER_KEYS"]
