@@ -381,7 +381,7 @@ def test_unconverged_dmrg_levels_are_flagged():
     Converged levels pass (variance ⟨H²⟩ − ⟨H⟩² ≥ (distance to the nearest exact level)², the
     Krylov–Weinstein bound, textbook: Parlett, The Symmetric Eigenvalue Problem, 1998)."""
     pytest.importorskip("tenpy")
-    from lgt.mps.dmrg import VARIANCE_LIMIT
+    from lgt.mps.dmrg import ERROR_LIMIT
     from lgt.tasks import get_task
 
     task = get_task("spectrum")
@@ -389,7 +389,7 @@ def test_unconverged_dmrg_levels_are_flagged():
     good = task.run(task.validate({"model": model, "spectrum": {"count": 3, "method": "mps",
                                                                 "bond_dimension": 32}}))
     assert not good.attributes["flag_unconverged"]
-    assert good.arrays["variance"].max() < VARIANCE_LIMIT
+    assert good.arrays["error_estimate"].max() < ERROR_LIMIT  # energy scale ≥ 1 here
     with pytest.warns(RuntimeWarning, match="not converged"):
         poor = task.run(task.validate({"model": model, "spectrum": {"count": 3, "method": "mps",
                                                                     "bond_dimension": 2}}))
@@ -397,6 +397,20 @@ def test_unconverged_dmrg_levels_are_flagged():
     exact = exact_levels(ModelParams(**model), 20)  # the bound names some level, not always a low one
     for energy, variance in zip(poor.arrays["energies"], poor.arrays["variance"]):
         assert np.abs(exact - energy).min() <= np.sqrt(variance) + 1e-10
+
+
+def test_dmrg_error_estimate_is_the_smaller_bound():
+    """min(variance / gap, √variance): Kato–Temple and Krylov–Weinstein (Parlett 1998); an exactly
+    degenerate converged pair is not flagged, an isolated level with a large variance is."""
+    from lgt.mps.dmrg import DMRGResult
+
+    res = DMRGResult(np.array([-3.0, -1.0, -1.0]), [], [], [], [], 0.0, variance=[4e-8, 1e-14, 1e-14])
+    np.testing.assert_allclose(res.error_estimate, [2e-8, 1e-7, 1e-7])
+    assert res.unconverged == []
+    res = DMRGResult(np.array([-3.0, -2.5]), [], [], [], [], 0.0, variance=[1e-9, 1e-5])
+    np.testing.assert_allclose(res.error_estimate, [2e-9, 2e-5])
+    assert res.unconverged == [1]
+    assert DMRGResult(np.array([-3.0]), [], [], [], [], 0.0, variance=[1e-7]).unconverged == []
 
 
 def test_tenpy_round_trip():

@@ -24,6 +24,7 @@ def spectrum_summary(result) -> dict:
     }
     if result.attributes.get("method") == "mps":  # lgt.mps.dmrg.run_spectrum_task
         summary.update({"variance": result.arrays["variance"].tolist(),
+                        "error_estimate": result.arrays["error_estimate"].tolist(),
                         "max_bond": result.arrays["max_bond"].tolist(),
                         "converged": not result.attributes["flag_unconverged"]})
     return summary
@@ -55,7 +56,7 @@ def _run(args: argparse.Namespace) -> int:
     for k, e in enumerate(summary["energies"]):
         print(f"{k:>5}  {e:>16.10f}  {e - e0:>14.10f}" + (f"  {variance[k]:>9.1e}" if variance else ""))
     if variance and not summary["converged"]:
-        print("NOT CONVERGED: some levels exceed the DMRG variance limit (see the warning above)")
+        print("NOT CONVERGED: some levels exceed the DMRG error limit (see the warning above)")
     if args.output:
         print(f"wrote {args.output}")
     return 0
