@@ -78,7 +78,7 @@ def test_massless_schwinger_model():
     pytest.importorskip("tenpy")
     from lgt.continuum import run_continuum
 
-    # the setup measured in docs/continuum.md (about 75 min of DMRG under load 4-12 on 2 cores)
+    # the setup measured in docs/continuum.md (279 s wall at load 2-3 on 2 cores)
     config = {"continuum": {"x": [4.0, 9.0, 16.0], "volumes": [6.0, 8.0, 10.0], "levels": 5,
                             "bond_dimension": 40, "x_degree": 1}}
     result = run_continuum(resolve_continuum(config))
