@@ -389,7 +389,7 @@ def test_unconverged_dmrg_levels_are_flagged():
     good = task.run(task.validate({"model": model, "spectrum": {"count": 3, "method": "mps",
                                                                 "bond_dimension": 32}}))
     assert not good.attributes["flag_unconverged"]
-    assert good.arrays["error_estimate"].max() < ERROR_LIMIT  # energy scale ≥ 1 here
+    assert good.arrays["error_estimate"].max() < ERROR_LIMIT  # stricter than the model's own limit
     with pytest.warns(RuntimeWarning, match="not converged"):
         poor = task.run(task.validate({"model": model, "spectrum": {"count": 3, "method": "mps",
                                                                     "bond_dimension": 2}}))

@@ -170,9 +170,10 @@ def engine_options(chi: int, energy_tolerance: float, excited: bool) -> dict[str
     (their unconverged near-degenerate mixtures otherwise fill the cap at once), longer Lanczos
     runs and few sweeps; the Rayleigh–Ritz step corrects what is left (:func:`ritz_step`).
     tenpy's own truncation check (``max_trunc_err``, an exception after the run) is off: a too
-    small cap is reported by the variance of each level instead (:data:`VARIANCE_LIMIT`).
+    small cap is reported by each level's error estimate instead (:data:`ERROR_LIMIT`).
     """
-    options = {"mixer": False, "max_trunc_err": float("inf"), "diag_method": "lanczos", "max_E_err": energy_tolerance, "max_S_err": 1e-5,
+    options = {"mixer": False, "max_trunc_err": float("inf"), "diag_method": "lanczos",
+               "max_E_err": energy_tolerance, "max_S_err": 1e-5,
                "min_sweeps": 3, "max_sweeps": GROUND_SWEEPS, "combine": True,
                "trunc_params": {"chi_max": chi, "svd_min": SCHMIDT_CUTOFF},
                "lanczos_params": {"N_max": 20, "E_tol": 1e-13}}
