@@ -137,18 +137,22 @@ def penalty_scale(params: ModelParams) -> float:
                   + abs(params.coupling) * window ** 2 + 1.0)
 
 
-def energy_bound(params: ModelParams) -> float:
-    """An upper bound on |E| of the register Hamiltonian (Σ of local operator norms)."""
+def local_term_norms(params: ModelParams) -> np.ndarray:
+    """Operator norm of each local term of the register Hamiltonian (lattice units)."""
     from lgt.hamiltonian import local_terms
 
-    return float(sum(np.abs(np.linalg.eigvalsh(t.matrix)).max() for t in local_terms(params)))
+    return np.array([np.abs(np.linalg.eigvalsh(t.matrix)).max() for t in local_terms(params)])
+
+
+def energy_bound(params: ModelParams) -> float:
+    """An upper bound on |E| of the register Hamiltonian (Σ of local operator norms)."""
+    return float(local_term_norms(params).sum())
 
 
 def energy_scale(params: ModelParams) -> float:
     """Mean operator norm of one local term (lattice units): the scale of :data:`ERROR_LIMIT`."""
-    from lgt.hamiltonian import local_terms
-
-    return energy_bound(params) / max(len(local_terms(params)), 1)
+    norms = local_term_norms(params)
+    return float(norms.mean()) if norms.size else 1.0
 
 
 def start_state(params: ModelParams, sites: list):
