@@ -120,6 +120,26 @@ def test_time_estimate_follows_the_bond_growth():
     assert estimate_mps_seconds(99, 3, 64, times, 0.1, order=2) < e64 / 3
 
 
+#: CPU seconds measured on this project's development machine (docs/mps.md "Measured",
+#: benchmarks/bench_mps.py, d = 3, dt = 0.1, bare vacuum and meson): (N, χ, t, CPU s).
+MEASURED_MPS_RUNS = [(24, 64, 10, 61), (24, 64, 10, 64), (24, 128, 10, 257), (24, 128, 10, 246),
+                     (50, 64, 10, 193), (50, 64, 10, 194), (50, 128, 10, 957),
+                     (50, 128, 10, 935), (100, 64, 5, 153), (100, 64, 5, 150),
+                     (100, 128, 5, 423), (100, 128, 5, 378), (100, 64, 10, 893),
+                     (100, 64, 10, 803)]
+
+
+@pytest.mark.parametrize("sites, chi, t_final, cpu_seconds", MEASURED_MPS_RUNS)
+def test_time_estimate_within_a_factor_two_of_measured_runs(sites, chi, t_final, cpu_seconds):
+    """The guard's estimate against measured whole runs (short chains whose end bonds never
+    fill χ as well as long ones whose bonds all do)."""
+    from lgt.mps.guards import estimate_mps_seconds
+
+    times = np.round(np.arange(1, int(round(t_final / 0.1)) + 1) * 0.1, 10)
+    estimate = estimate_mps_seconds(sites - 1, 3, chi, times, 0.1)
+    assert 0.5 < estimate / cpu_seconds < 2.0
+
+
 # ---------------------------------------------------------------------- evolution vs exact
 def scenarios(N: int) -> dict:
     base = {"sites": N, "hopping": 1.0, "mass": 0.5, "coupling": 1.0}
