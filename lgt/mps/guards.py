@@ -7,9 +7,10 @@ numbers, the cached gates and the interpreter baseline.
 Time (a realistic estimate, not a bound): the run's single-core CPU seconds, i.e. its wall
 time on an idle machine. A quench from a product state starts at χ = 1; the bond dimension is
 modelled as growing like χ(t) = e^{t/τ} (τ = :data:`GROWTH_TIME`, entanglement growing linearly
-in t) until it meets the cap min(χ, e^{s·min(b, K−b)}) of each bond, s =
-:data:`ENTROPY_PER_LINK` (a quench saturates the entanglement of a bond at an extensive value set
-by the distance to the nearer chain end, below the register's own bound ln d per link). One 3-link gate costs
+in t) until it meets the cap min(χ, d^b, d^(K−b), e^{s·min(b, K−b)}) of each bond, s =
+:data:`ENTROPY_PER_LINK` (a quench saturates the entanglement of a bond at an extensive value
+set by the distance to the nearer chain end, below the register's own bound ln d per link).
+One 3-link gate costs
 ``GATE_OVERHEAD + GATE_CUBIC · (d/3)⁴ · χ³`` CPU seconds (fit to the measured cost of saturated
 gates, χ = 8…128, d = 3); a fourth-order step applies 7 layers per group (21 layers, 7·(K−2)
 gates; second order 4/3·(K−2) per step plus one layer per stored interval), and each stored
